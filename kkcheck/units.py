@@ -1,0 +1,185 @@
+"""Axis units, optical-constant conversions and the sign convention, in one place.
+
+Canonical axis: photon energy E = hbar*omega in eV, float64, strictly increasing, > 0.
+Time dependence exp(-i omega t); eps = eps1 + i eps2, N = n + i k, eps = N**2, mu = 1.
+A passive medium has eps2 >= 0 and k >= 0 for omega > 0.
+
+Constants (CODATA 2018, exact SI definitions of h, c, e):
+
+* ``HC_EV_NM`` = h c = 1239.841984 eV nm (E[eV] = 1239.841984 / lambda[nm])
+* ``EV_PER_INV_CM`` = 1.239841984e-4 eV per cm^-1 (E = hc * wavenumber)
+* ``EV_PER_THZ`` = h = 4.135667696e-3 eV per THz (E = h nu)
+* ``HBAR_EV_S`` = hbar = 6.582119569e-16 eV s (E = hbar omega, omega in rad/s)
+
+References
+----------
+.. [1] E. Tiesinga et al., "CODATA recommended values of the fundamental physical constants:
+   2018", Rev. Mod. Phys. 93, 025010 (2021).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = [
+    "HC_EV_NM",
+    "EV_PER_INV_CM",
+    "EV_PER_THZ",
+    "HBAR_EV_S",
+    "AXIS_UNITS",
+    "to_energy_ev",
+    "from_energy_ev",
+    "nk_to_eps",
+    "eps_to_nk",
+    "sigma_nk_to_eps",
+    "ConventionCheck",
+    "detect_convention",
+]
+
+HC_EV_NM = 1239.841984
+EV_PER_INV_CM = 1.239841984e-4
+EV_PER_THZ = 4.135667696e-3
+HBAR_EV_S = 6.582119569e-16
+
+#: Axis kinds kkcheck understands, with their canonical spelling (used in headers and JSON).
+AXIS_UNITS = (
+    "energy_ev",
+    "wavelength_nm",
+    "wavelength_um",
+    "wavenumber_cm-1",
+    "frequency_thz",
+    "angular_frequency_rad_s",
+)
+
+
+def to_energy_ev(values, axis: str) -> np.ndarray:
+    """Convert axis values in unit ``axis`` to photon energy in eV.
+
+    Parameters
+    ----------
+    values : array_like
+        Axis values, all > 0.
+    axis : str
+        One of :data:`AXIS_UNITS`.
+
+    Returns
+    -------
+    numpy.ndarray
+        Photon energy [eV], same order as ``values`` (a wavelength axis reverses the order
+        of increase; sorting is the caller's job).
+    """
+    x = np.asarray(values, dtype=float)
+    if axis == "energy_ev":
+        return x.copy()
+    if axis == "wavelength_nm":
+        return HC_EV_NM / x
+    if axis == "wavelength_um":
+        return HC_EV_NM / (1e3 * x)
+    if axis == "wavenumber_cm-1":
+        return x * EV_PER_INV_CM
+    if axis == "frequency_thz":
+        return x * EV_PER_THZ
+    if axis == "angular_frequency_rad_s":
+        return x * HBAR_EV_S
+    raise ValueError(f"unknown axis unit {axis!r}; expected one of {', '.join(AXIS_UNITS)}")
+
+
+def from_energy_ev(energy_ev, axis: str) -> np.ndarray:
+    """Convert photon energy [eV] to unit ``axis`` (inverse of :func:`to_energy_ev`)."""
+    e = np.asarray(energy_ev, dtype=float)
+    if axis == "energy_ev":
+        return e.copy()
+    if axis == "wavelength_nm":
+        return HC_EV_NM / e
+    if axis == "wavelength_um":
+        return HC_EV_NM / e / 1e3
+    if axis == "wavenumber_cm-1":
+        return e / EV_PER_INV_CM
+    if axis == "frequency_thz":
+        return e / EV_PER_THZ
+    if axis == "angular_frequency_rad_s":
+        return e / HBAR_EV_S
+    raise ValueError(f"unknown axis unit {axis!r}; expected one of {', '.join(AXIS_UNITS)}")
+
+
+def nk_to_eps(n, k) -> np.ndarray:
+    """Complex permittivity eps = (n + i k)**2 = (n^2 - k^2) + i (2 n k)."""
+    n = np.asarray(n, dtype=float)
+    k = np.asarray(k, dtype=float)
+    return (n * n - k * k) + 1j * (2.0 * n * k)
+
+
+def eps_to_nk(eps) -> tuple[np.ndarray, np.ndarray]:
+    """Refractive index n and extinction k from complex eps, principal root (n >= 0).
+
+    Uses n = sqrt((|eps| + eps1)/2), k = sign(eps2) sqrt((|eps| - eps1)/2), which is
+    numerically stable for metals (eps1 << 0) and transparent media (eps2 -> 0).
+    """
+    eps = np.asarray(eps, dtype=complex)
+    mod = np.abs(eps)
+    n = np.sqrt(np.maximum(0.5 * (mod + eps.real), 0.0))
+    k = np.sqrt(np.maximum(0.5 * (mod - eps.real), 0.0))
+    k = np.where(eps.imag < 0, -k, k)
+    return n, k
+
+
+def sigma_nk_to_eps(n, k, sigma_n, sigma_k) -> tuple[np.ndarray, np.ndarray]:
+    """Propagate independent standard uncertainties of n and k to eps1 and eps2.
+
+    First-order propagation of eps1 = n^2 - k^2, eps2 = 2 n k:
+    sigma_eps1 = 2 sqrt(n^2 sigma_n^2 + k^2 sigma_k^2),
+    sigma_eps2 = 2 sqrt(k^2 sigma_n^2 + n^2 sigma_k^2).
+    The noise in eps therefore grows with |N|.
+    """
+    n, k, sn, sk = (np.asarray(a, dtype=float) for a in (n, k, sigma_n, sigma_k))
+    s1 = 2.0 * np.sqrt((n * sn) ** 2 + (k * sk) ** 2)
+    s2 = 2.0 * np.sqrt((k * sn) ** 2 + (n * sk) ** 2)
+    return s1, s2
+
+
+@dataclass(frozen=True)
+class ConventionCheck:
+    """Outcome of the sign-convention test on one table.
+
+    Attributes
+    ----------
+    detected : str
+        ``"exp(-iwt)"`` (physics, eps2 >= 0 for passive media) or ``"exp(+iwt)"``
+        (engineering, eps2 <= 0 written as-is).
+    fraction_negative : float
+        Fraction of points whose imaginary part (k or eps2) is below ``-tol``.
+    fraction_positive : float
+        Fraction of points whose imaginary part is above ``+tol``.
+    """
+
+    detected: str
+    fraction_negative: float
+    fraction_positive: float
+
+
+def detect_convention(imag_part, tol: float = 0.0) -> ConventionCheck:
+    """Detect the time-dependence convention a table was written in.
+
+    A passive medium in the exp(-i w t) convention has k >= 0 and eps2 >= 0. Data whose
+    imaginary part is *mostly* negative (more negative than positive points beyond ``tol``)
+    was written in the exp(+i w t) convention (N = n - i k, eps = eps' - i eps''). A few
+    negative points among mostly positive ones are noise or a real fault, not a convention,
+    and are left for the consistency test to report.
+
+    Parameters
+    ----------
+    imag_part : array_like
+        k or eps2 as read from the file.
+    tol : float
+        Values with ``|imag| <= tol`` count as neither sign (transparent regions).
+    """
+    x = np.asarray(imag_part, dtype=float)
+    x = x[np.isfinite(x)]
+    if x.size == 0:
+        return ConventionCheck("exp(-iwt)", 0.0, 0.0)
+    neg = float(np.mean(x < -tol))
+    pos = float(np.mean(x > tol))
+    detected = "exp(+iwt)" if neg > pos else "exp(-iwt)"
+    return ConventionCheck(detected, neg, pos)
