@@ -147,39 +147,48 @@ class ConventionCheck:
     ----------
     detected : str
         ``"exp(-iwt)"`` (physics, eps2 >= 0 for passive media) or ``"exp(+iwt)"``
-        (engineering, eps2 <= 0 written as-is).
-    fraction_negative : float
-        Fraction of points whose imaginary part (k or eps2) is below ``-tol``.
-    fraction_positive : float
-        Fraction of points whose imaginary part is above ``+tol``.
+        (engineering, imaginary part written negative).
+    fraction_negative, fraction_positive : float
+        Fraction of points whose imaginary part (k or eps2) is below / above zero.
+    negative_weight : float
+        Share of the total absolute imaginary part carried by negative values, in [0, 1].
+    clear : bool
+        False when the imaginary part is too close to zero on both sides to tell (a
+        transparent sample measured with noise); the table is then taken as exp(-i w t)
+        and nothing is converted.
     """
 
     detected: str
     fraction_negative: float
     fraction_positive: float
+    negative_weight: float
+    clear: bool
 
 
-def detect_convention(imag_part, tol: float = 0.0) -> ConventionCheck:
+def detect_convention(imag_part, dominance: float = 0.8) -> ConventionCheck:
     """Detect the time-dependence convention a table was written in.
 
-    A passive medium in the exp(-i w t) convention has k >= 0 and eps2 >= 0. Data whose
-    imaginary part is *mostly* negative (more negative than positive points beyond ``tol``)
-    was written in the exp(+i w t) convention (N = n - i k, eps = eps' - i eps''). A few
-    negative points among mostly positive ones are noise or a real fault, not a convention,
-    and are left for the consistency test to report.
+    A passive medium in the exp(-i w t) convention has k >= 0 and eps2 >= 0. A table whose
+    imaginary part is *mostly* negative was written in the exp(+i w t) convention
+    (N = n - i k, eps = eps' - i eps''). "Mostly" is measured by weight, not by count:
+    the negative values must carry at least ``dominance`` (default 80 %) of the total
+    absolute imaginary part. Noise around zero in a transparent region splits the weight
+    roughly evenly and is therefore *not* taken as a convention (``clear`` is False); a few
+    negative points among mostly positive ones are left for the consistency test to report.
 
     Parameters
     ----------
     imag_part : array_like
         k or eps2 as read from the file.
-    tol : float
-        Values with ``|imag| <= tol`` count as neither sign (transparent regions).
+    dominance : float
+        Weight share, in (0.5, 1), that one sign must carry for a clear decision.
     """
     x = np.asarray(imag_part, dtype=float)
     x = x[np.isfinite(x)]
-    if x.size == 0:
-        return ConventionCheck("exp(-iwt)", 0.0, 0.0)
-    neg = float(np.mean(x < -tol))
-    pos = float(np.mean(x > tol))
-    detected = "exp(+iwt)" if neg > pos else "exp(-iwt)"
-    return ConventionCheck(detected, neg, pos)
+    total = float(np.sum(np.abs(x)))
+    if x.size == 0 or total == 0.0:
+        return ConventionCheck("exp(-iwt)", 0.0, 0.0, 0.0, False)
+    neg_w = float(np.sum(-x[x < 0])) / total
+    detected = "exp(+iwt)" if neg_w >= dominance else "exp(-iwt)"
+    clear = neg_w >= dominance or neg_w <= 1.0 - dominance
+    return ConventionCheck(detected, float(np.mean(x < 0)), float(np.mean(x > 0)), neg_w, clear)

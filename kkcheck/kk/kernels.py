@@ -100,8 +100,9 @@ def pl_kk_matrix_eps1_to_eps2(nodes, omega) -> np.ndarray:
 
     Even extension u(-w) = u(w); eps2(w) = -(1/pi) P int u_even(w')/(w' - w) dw'.
     Kinks contribute (1/pi) dm_j [(x_j + w) ln|x_j + w| - (x_j - w) ln|x_j - w|]; a step of
-    height J at x_j contributes -(1/pi) J ln|(x_j - w)/(x_j + w)|. A finite window can never fix a constant offset
-    of eps1 - eps_inf: such an offset maps to an eps2 that grows like ln at the window ends.
+    height J at x_j contributes -(1/pi) J ln|(x_j - w)/(x_j + w)|. A finite window can never
+    fix a constant offset of eps1 - eps_inf: such an offset maps to an eps2 that grows like
+    ln at the window ends.
     """
     x = np.asarray(nodes, dtype=float)
     w = np.asarray(omega, dtype=float)[:, None]
