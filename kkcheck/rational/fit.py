@@ -1,0 +1,254 @@
+"""Fit a stable, certified-passive pole-pair model to eps data: the public entry point.
+
+References
+----------
+.. [1] B. Gustavsen, "Improving the pole relocating properties of vector fitting," IEEE Trans.
+   Power Deliv. 21(3), 1587-1592 (2006).
+.. [2] B. Gustavsen, A. Semlyen, IEEE Trans. Power Syst. 16(1), 97-104 (2001).
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import InputError
+from .model import PolePairModel
+from .order import OrderRow, choose_by_bic, fit_metrics, meets_target
+from .passivity import (
+    EnforcementRecord,
+    PassivityCertificate,
+    certify_passivity,
+    enforce_passivity,
+)
+from .vfit import starting_poles, vector_fit
+
+__all__ = ["FitResult", "fit_pole_pairs", "detect_conductor"]
+
+
+@dataclass(frozen=True)
+class FitResult:
+    """Result of :func:`fit_pole_pairs`.
+
+    Attributes
+    ----------
+    model : PolePairModel
+        The chosen (and, if needed, passivity-enforced) model; energies in eV.
+    n_pairs : int
+        Entries of the model (complex pairs plus real poles; conductor term not counted).
+    rms_rel, max_rel : float
+        RMS and largest relative error |eps_model - eps| / |eps| on the data [dimensionless].
+    chi2_dof : float or None
+        Weighted chi2 per degree of freedom when sigma was given, else None.
+    passivity : PassivityCertificate
+        Whole-axis certificate of the returned model (certified, min_eps2, method,
+        crossing_energies_ev, ...).
+    stable : bool
+        Re a_p < 0 for all poles (the conductor pole at 0 excepted) and eps_inf > 0.
+    enforcement : EnforcementRecord
+        Whether enforcement was needed, and the rms/max relative error before and after.
+    order_table : tuple of OrderRow
+        Trade-off table of every order tried (unconstrained fits).
+    range_ev : tuple of float
+        (lowest, highest) fitted energy [eV].
+    conductor : bool
+        Whether the conductor term (pole at s = 0) was included.
+    warnings : tuple of str
+        Everything the fit warned about, also emitted as RuntimeWarning.
+    """
+
+    model: PolePairModel
+    n_pairs: int
+    rms_rel: float
+    max_rel: float
+    chi2_dof: float | None
+    passivity: PassivityCertificate
+    stable: bool
+    enforcement: EnforcementRecord
+    order_table: tuple
+    range_ev: tuple
+    conductor: bool
+    warnings: tuple
+
+
+def detect_conductor(energy_ev, eps) -> bool:
+    """Heuristic free-carrier test at the low-energy end of the data.
+
+    True when, over the lowest 10 % of the points (at least 5), eps1 < 0 with |eps1| growing
+    toward low energy at least as fast as w^-1, and eps2 growing toward low energy at least as
+    fast as w^-1 (Drude: |eps1| ~ w^-2 and eps2 ~ w^-3 above gamma, ~ w^-1 below). A Lorentz
+    resonance just below the window can mimic this; pass ``conductor=True/False`` to decide.
+    """
+    w = np.asarray(energy_ev, dtype=float)
+    e = np.asarray(eps, dtype=complex)
+    k = max(5, w.size // 10)
+    lw, e1, e2 = np.log(w[:k]), e.real[:k], e.imag[:k]
+    if np.any(e1 >= 0) or np.any(e2 <= 0):
+        return False
+    s1 = np.polyfit(lw, np.log(-e1), 1)[0]
+    s2 = np.polyfit(lw, np.log(e2), 1)[0]
+    return bool(s1 <= -1.0 and s2 <= -1.0)
+
+
+def _validate(energy_ev, eps, sigma_eps1, sigma_eps2, n_pairs, tol_rel, conductor, max_pairs):
+    w = np.asarray(energy_ev, dtype=float).reshape(-1)
+    e = np.asarray(eps, dtype=complex).reshape(-1)
+    if w.size != e.size:
+        raise InputError("energy_ev and eps must have the same length")
+    if w.size < 4 or not np.all(np.isfinite(w)) or np.any(w <= 0) or np.any(np.diff(w) <= 0):
+        raise InputError(
+            "energy_ev must be at least 4 finite, positive, strictly increasing values"
+        )
+    if not np.all(np.isfinite(e)) or np.any(e == 0):
+        raise InputError("eps must be finite and non-zero at every point")
+    sig = []
+    for s in (sigma_eps1, sigma_eps2):
+        if s is None:
+            sig.append(None)
+            continue
+        s = np.broadcast_to(np.asarray(s, dtype=float), w.shape)
+        if not np.all(np.isfinite(s)) or np.any(s <= 0):
+            raise InputError("sigma_eps1/sigma_eps2 must be finite and > 0")
+        sig.append(s)
+    if sig[0] is None and sig[1] is not None or sig[0] is not None and sig[1] is None:
+        sig = [sig[0] if sig[0] is not None else sig[1]] * 2
+    if n_pairs is not None and (int(n_pairs) != n_pairs or n_pairs < 1):
+        raise InputError("n_pairs must be a positive integer")
+    if tol_rel is not None and not (tol_rel > 0):
+        raise InputError("tol_rel must be > 0")
+    if conductor not in ("auto", True, False):
+        raise InputError("conductor must be 'auto', True or False")
+    if int(max_pairs) < 1:
+        raise InputError("max_pairs must be >= 1")
+    return w, e, sig
+
+
+def fit_pole_pairs(
+    energy_ev,
+    eps,
+    sigma_eps1=None,
+    sigma_eps2=None,
+    *,
+    n_pairs=None,
+    tol_rel=None,
+    conductor="auto",
+    max_pairs=12,
+    enforce_passivity=True,
+) -> FitResult:
+    """Fit a stable pole-pair model with few entries and a whole-axis passivity certificate.
+
+    Parameters
+    ----------
+    energy_ev : array_like
+        Photon energies [eV], strictly increasing, > 0.
+    eps : array_like of complex
+        Permittivity eps1 + i eps2 (exp(-i w t)).
+    sigma_eps1, sigma_eps2 : array_like or float, optional
+        Standard uncertainties of eps1 and eps2; the residuals are weighted by 1/sigma and
+        chi2/dof is reported. Without them the weights are 1/|eps| (relative error).
+    n_pairs : int, optional
+        Fit exactly this many starting entries (no order search).
+    tol_rel : float, optional
+        Accept the fewest entries whose rms relative error is <= tol_rel (after enforcement).
+    conductor : {"auto", True, False}
+        Include a conductor pole at s = 0; "auto" uses :func:`detect_conductor`.
+    max_pairs : int
+        Largest number of starting entries tried.
+    enforce_passivity : bool
+        Repair a non-passive fit by residue perturbation (poles fixed).
+
+    Returns
+    -------
+    FitResult
+
+    Notes
+    -----
+    Model (DESIGN.md): eps(w) = eps_inf + sum_p [c_p/(s - a_p) + conj(c_p)/(s - conj(a_p))]
+    (+ 2 c_0/s), s = -i w. Orders 1, 2, ... max_pairs are fitted by relaxed vector fitting
+    (:func:`~kkcheck.rational.vfit.vector_fit`). The chosen order is the fewest entries that
+    meet ``tol_rel`` or, with sigma and no tol_rel, chi2/dof <= 1 + 3 sqrt(2/dof) (noise
+    floor); without either, the smallest BIC (the search stops two orders after the last BIC
+    improvement). The chosen fit is certified
+    (:func:`~kkcheck.rational.passivity.certify_passivity`) and, when not passive,
+    enforced; if enforcement breaks the tolerance the next order is tried.
+    """
+    w, e, sig = _validate(
+        energy_ev, eps, sigma_eps1, sigma_eps2, n_pairs, tol_rel, conductor, max_pairs
+    )
+    have_sigma = sig[0] is not None
+    w1 = 1 / sig[0] if have_sigma else 1 / np.abs(e)
+    w2 = 1 / sig[1] if have_sigma else 1 / np.abs(e)
+    cond = detect_conductor(w, e) if conductor == "auto" else bool(conductor)
+    notes = []
+    orders = [int(n_pairs)] if n_pairs is not None else list(range(1, int(max_pairs) + 1))
+    rows, fits = [], []
+    chosen = None
+    best_bic_at = 0
+    for n in orders:
+        if cond and n < 1:
+            continue
+        vf = vector_fit(w, e, starting_poles(w, n, cond, e), conductor=cond, weight1=w1, weight2=w2)
+        rms, mx, chi2, bic, npar = fit_metrics(vf.model, w, e, w1, w2, have_sigma)
+        cert = certify_passivity(vf.model)
+        row = OrderRow(n, vf.model.n_pairs, npar, rms, mx, chi2, bic, cert.certified)
+        rows.append(row)
+        fits.append((vf.model, cert))
+        if n_pairs is not None:
+            chosen = 0
+            break
+        if bic < rows[best_bic_at].bic:
+            best_bic_at = len(rows) - 1
+        if tol_rel is not None or have_sigma:
+            if meets_target(row, w.size, tol_rel):
+                model, enf, cert2 = _enforce(vf.model, cert, w, e, w1, w2, enforce_passivity)
+                if enf.rms_rel_after <= (tol_rel or np.inf) * 1.0 or not enf.needed:
+                    chosen = len(rows) - 1
+                    fits[-1] = (model, cert2, enf)
+                    break
+                notes.append(f"{n} entries met the target but not after passivity enforcement")
+        elif len(rows) - 1 - best_bic_at >= 2 or rms < 1e-12:
+            break
+    if chosen is None:
+        if n_pairs is None and (tol_rel is not None or have_sigma):
+            notes.append("no order up to max_pairs met the target; smallest BIC chosen")
+        chosen = choose_by_bic(rows) if n_pairs is None else 0
+    entry = fits[chosen]
+    if len(entry) == 3:
+        model, cert, enf = entry
+    else:
+        model, enf, cert = _enforce(entry[0], entry[1], w, e, w1, w2, enforce_passivity)
+    if not cert.certified:
+        notes.append(
+            f"model is not certified passive (min eps2 {cert.min_eps2:.3g} at "
+            f"{cert.min_energy_ev:.4g} eV)"
+        )
+    if not model.stable:
+        notes.append("model is not stable (eps_inf <= 0 or a pole with Re a >= 0)")
+    for msg in notes:
+        warnings.warn(msg, RuntimeWarning, stacklevel=2)
+    rms, mx, chi2, _, _ = fit_metrics(model, w, e, w1, w2, have_sigma)
+    return FitResult(
+        model,
+        model.n_pairs,
+        rms,
+        mx,
+        chi2,
+        cert,
+        model.stable,
+        enf,
+        tuple(rows),
+        (float(w[0]), float(w[-1])),
+        cond,
+        tuple(notes),
+    )
+
+
+def _enforce(model, cert, w, e, w1, w2, do_it):
+    if cert.certified or not do_it or not np.all(model.poles.real < 0):
+        rms = float(np.sqrt(np.mean((np.abs(model.eps(w) - e) / np.abs(e)) ** 2)))
+        mx = float(np.max(np.abs(model.eps(w) - e) / np.abs(e)))
+        return model, EnforcementRecord(False, cert.certified, 0, rms, rms, mx, mx, 0), cert
+    new, rec = enforce_passivity(model, w, e, w1, w2)
+    return new, rec, certify_passivity(new)

@@ -1,0 +1,189 @@
+"""Normal-incidence reflectance and transmittance of slabs: what a fit error does to a device.
+
+All functions use exp(-i w t), N = n + i k with k >= 0 absorbing, wavelengths in nm.
+
+References
+----------
+.. [1] M. Born, E. Wolf, *Principles of Optics*, 7th ed., Cambridge University Press (1999),
+   section 1.6 (Airy summation, characteristic matrix).
+.. [2] O. S. Heavens, *Optical Properties of Thin Solid Films*, Butterworths (1955); Dover
+   (1991) (film on a thick substrate, incoherent back face).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import InputError
+from .units import HC_EV_NM
+
+__all__ = [
+    "SlabRT",
+    "SlabComparison",
+    "coherent_slab",
+    "incoherent_slab",
+    "film_on_substrate",
+    "compare_slab",
+]
+
+
+@dataclass(frozen=True)
+class SlabRT:
+    """Reflectance and transmittance.
+
+    Attributes
+    ----------
+    R, T : ndarray
+        Power reflectance and transmittance [dimensionless, 0..1].
+    """
+
+    R: np.ndarray
+    T: np.ndarray
+
+
+def _index(eps_or_n, is_eps: bool) -> np.ndarray:
+    v = np.asarray(eps_or_n, dtype=complex)
+    return np.sqrt(v) if is_eps else v  # principal root: Im >= 0 when eps2 >= 0
+
+
+def _airy(n_slab, thickness_nm, wavelength_nm, n0, n2):
+    """Complex r, t of a coherent slab between n0 (incidence) and n2 (exit)."""
+    n = np.asarray(n_slab, dtype=complex)
+    beta = 2 * np.pi * n * thickness_nm / np.asarray(wavelength_nm, dtype=float)
+    r01 = (n0 - n) / (n0 + n)
+    r12 = (n - n2) / (n + n2)
+    t01 = 2 * n0 / (n0 + n)
+    t12 = 2 * n / (n + n2)
+    e2 = np.exp(2j * beta)
+    den = 1 + r01 * r12 * e2
+    return (r01 + r12 * e2) / den, t01 * t12 * np.exp(1j * beta) / den
+
+
+def coherent_slab(
+    n_slab, thickness_nm: float, wavelength_nm, n0: float = 1.0, n2: complex = 1.0
+) -> SlabRT:
+    """R and T of a coherent slab of index ``n_slab`` between ambient n0 and exit medium n2.
+
+    Notes
+    -----
+    Airy formulas (Born & Wolf [1]_), beta = 2 pi N d / lambda:
+    r01 = (n0 - N)/(n0 + N), r12 = (N - n2)/(N + n2), t01 = 2 n0/(n0 + N), t12 = 2N/(N + n2),
+    r = (r01 + r12 e^{2i beta})/(1 + r01 r12 e^{2i beta}),
+    t = t01 t12 e^{i beta}/(1 + r01 r12 e^{2i beta}); R = |r|^2, T = Re(n2)/n0 |t|^2.
+    """
+    r, t = _airy(n_slab, thickness_nm, wavelength_nm, n0, n2)
+    return SlabRT(np.abs(r) ** 2, np.real(n2) / n0 * np.abs(t) ** 2)
+
+
+def incoherent_slab(n_slab, thickness_nm: float, wavelength_nm) -> SlabRT:
+    """R and T of a thick slab in air with incoherent (intensity) multiple reflections.
+
+    Notes
+    -----
+    rho = |(1 - N)/(1 + N)|^2, tau = exp(-4 pi k d / lambda):
+    T = (1 - rho)^2 tau / (1 - rho^2 tau^2), R = rho [1 + (1 - rho)^2 tau^2 / (1 - rho^2 tau^2)]
+    (REFERENCES.md item 10).
+    """
+    n = np.asarray(n_slab, dtype=complex)
+    rho = np.abs((1 - n) / (1 + n)) ** 2
+    tau = np.exp(-4 * np.pi * n.imag * thickness_nm / np.asarray(wavelength_nm, dtype=float))
+    den = 1 - rho**2 * tau**2
+    return SlabRT(rho * (1 + (1 - rho) ** 2 * tau**2 / den), (1 - rho) ** 2 * tau / den)
+
+
+def film_on_substrate(
+    n_film, film_nm: float, n_substrate, substrate_nm: float, wavelength_nm
+) -> SlabRT:
+    """Coherent film on a thick incoherent substrate, in air, light incident on the film.
+
+    Notes
+    -----
+    Film values from the front (R_f, T_f) and from the substrate side (R_f', T_f') by the Airy
+    formulas; back face rho_b = |(N_s - 1)/(N_s + 1)|^2, internal tau = exp(-4 pi k_s d_s/lambda):
+    T = T_f tau (1 - rho_b)/(1 - R_f' rho_b tau^2),
+    R = R_f + T_f T_f' rho_b tau^2/(1 - R_f' rho_b tau^2)
+    (Heavens [2]_; REFERENCES.md item 10, tagged from memory there). T_f and T_f' use the real
+    part of the substrate index (weakly absorbing substrate).
+    """
+    ns = np.asarray(n_substrate, dtype=complex) * np.ones_like(np.asarray(wavelength_nm, float))
+    front = coherent_slab(n_film, film_nm, wavelength_nm, 1.0, ns)
+    rb, tb = _airy(n_film, film_nm, wavelength_nm, ns, 1.0)
+    rf_back = np.abs(rb) ** 2
+    tf_back = np.abs(tb) ** 2 / ns.real
+    rho_b = np.abs((ns - 1) / (ns + 1)) ** 2
+    tau = np.exp(-4 * np.pi * ns.imag * substrate_nm / np.asarray(wavelength_nm, dtype=float))
+    den = 1 - rf_back * rho_b * tau**2
+    return SlabRT(
+        front.R + front.T * tf_back * rho_b * tau**2 / den, front.T * tau * (1 - rho_b) / den
+    )
+
+
+@dataclass(frozen=True)
+class SlabComparison:
+    """R/T from tabulated eps versus from a model, over the fitted range.
+
+    Attributes
+    ----------
+    thickness_nm : float
+        Slab (or film) thickness [nm].
+    max_dR, max_dT : float
+        Largest |R_model - R_table| and |T_model - T_table| [dimensionless].
+    at_dR_ev, at_dT_ev : float
+        Photon energies of those maxima [eV].
+    geometry : str
+        "free-standing" or "film on substrate".
+    """
+
+    thickness_nm: float
+    max_dR: float
+    max_dT: float
+    at_dR_ev: float
+    at_dT_ev: float
+    geometry: str
+
+
+def compare_slab(
+    energy_ev,
+    eps_table,
+    model,
+    thickness_nm: float = 100.0,
+    *,
+    substrate_n=None,
+    substrate_nm: float = 1e6,
+) -> SlabComparison:
+    """Compare normal-incidence R/T computed from tabulated eps and from a model.
+
+    Parameters
+    ----------
+    energy_ev : array_like
+        Photon energies [eV] (the fitted range).
+    eps_table : array_like of complex
+        Tabulated permittivity at those energies.
+    model : object with ``eps(energy_ev)``
+        E.g. a :class:`~kkcheck.rational.model.PolePairModel`.
+    thickness_nm : float
+        Slab or film thickness [nm]; default 100 nm.
+    substrate_n : complex or array_like, optional
+        Substrate index; when given the film sits on a thick incoherent substrate of thickness
+        ``substrate_nm`` [nm] (default 1 mm), otherwise the slab is free-standing in air.
+    """
+    w = np.asarray(energy_ev, dtype=float)
+    if thickness_nm <= 0:
+        raise InputError("thickness_nm must be > 0")
+    lam = HC_EV_NM / w
+    n_tab = _index(eps_table, True)
+    n_mod = _index(model.eps(w), True)
+    if substrate_n is None:
+        a, b = coherent_slab(n_tab, thickness_nm, lam), coherent_slab(n_mod, thickness_nm, lam)
+        geom = "free-standing"
+    else:
+        a = film_on_substrate(n_tab, thickness_nm, substrate_n, substrate_nm, lam)
+        b = film_on_substrate(n_mod, thickness_nm, substrate_n, substrate_nm, lam)
+        geom = "film on substrate"
+    dr, dt = np.abs(b.R - a.R), np.abs(b.T - a.T)
+    i, j = int(np.argmax(dr)), int(np.argmax(dt))
+    return SlabComparison(
+        float(thickness_nm), float(dr[i]), float(dt[j]), float(w[i]), float(w[j]), geom
+    )
