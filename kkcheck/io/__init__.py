@@ -1,0 +1,23 @@
+"""Reading and writing tables.
+
+Public API
+----------
+read_table
+    One table file (n,k or eps1,eps2 against wavelength, energy, wavenumber or frequency)
+    -> :class:`kkcheck.spectrum.Dataset` on the canonical photon-energy axis.
+write_table_csv
+    A Dataset, Spectrum or DataFrame -> CSV with unit-bearing headers and a provenance
+    comment block, readable again by :func:`read_table`.
+write_json
+    Any JSON-like value (numpy types converted, NaN -> null) -> a JSON file.
+sha256_file
+    Hex sha256 digest of a file.
+
+Both writers replace the target atomically and refuse to write over any of the run's input
+files. Header spellings live in one table, :mod:`kkcheck.io.headers`.
+"""
+
+from .read import read_table
+from .write import sha256_file, write_json, write_table_csv
+
+__all__ = ["read_table", "write_table_csv", "write_json", "sha256_file"]
