@@ -16,6 +16,7 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.linalg import solve_triangular
 from scipy.optimize import lsq_linear
 
 from .model import PolePairModel, design_matrix, model_from_vector
@@ -76,7 +77,9 @@ def starting_poles(
 
         s = np.concatenate([-1j * w, 1j * w])
         f = np.concatenate([np.asarray(eps), np.conj(eps)])
-        r = AAA(s, f, max_terms=min(2 * n_free + 1, 60))
+        with warnings.catch_warnings():  # the term cap is deliberate: only starting poles
+            warnings.filterwarnings("ignore", "AAA failed to converge", RuntimeWarning)
+            r = AAA(s, f, max_terms=min(2 * n_free + 1, 60))
         p, res = r.poles(), r.residues()
         keep = (p.imag > 0) & (p.real < 0)
         order = np.argsort(-np.abs(res[keep]))
@@ -119,13 +122,23 @@ def _split_poles(ev: np.ndarray) -> np.ndarray:
     return a[np.argsort(np.abs(a))]
 
 
+def _qr_solve(a, b):
+    """Least squares by thin QR; returns (x, condition estimate max|R_ii| / min|R_ii|)."""
+    q, r = np.linalg.qr(a)
+    d = np.abs(np.diag(r))
+    cnd = float(d.max() / max(d.min(), 1e-300))
+    if cnd > 1e15:  # rank deficient: fall back to the SVD solution
+        return np.linalg.lstsq(a, b, rcond=None)[0], cnd
+    return solve_triangular(r, q.T @ b), cnd
+
+
 def _solve_residues(poles, conductor, energy_ev, eps, w1, w2):
     x = design_matrix(poles, conductor, energy_ev)
     a = np.vstack([x.real * w1[:, None], x.imag * w2[:, None]])
     b = np.concatenate([eps.real * w1, eps.imag * w2])
     cn = np.linalg.norm(a, axis=0)
     cn[cn == 0] = 1.0
-    theta = np.linalg.lstsq(a / cn, b, rcond=None)[0] / cn
+    theta = _qr_solve(a / cn, b)[0] / cn
     if theta[0] <= 0:  # eps_inf must stay positive: bound it
         lb = np.full(theta.size, -np.inf)
         lb[0] = 1e-3 * cn[0]
@@ -203,9 +216,9 @@ def vector_fit(
         rhs = np.append(rhs, wt * n)
         cn = np.linalg.norm(a, axis=0)
         cn[cn == 0] = 1.0
-        sol, _, _, sv = np.linalg.lstsq(a / cn, rhs, rcond=None)
+        sol, cnd = _qr_solve(a / cn, rhs)
         sol = sol / cn
-        max_cond = max(max_cond, float(sv[0] / max(sv[-1], 1e-300)))
+        max_cond = max(max_cond, cnd)
         sig = sol[xn.shape[1] :]
         d_t = sig[0]
         if abs(d_t) < _RELAX_FLOOR:  # fix d~ and solve again without the relaxation row [2]
@@ -214,7 +227,7 @@ def vector_fit(
             rhs2 = -a2[:, xn.shape[1]] * cn[xn.shape[1]] * d_t
             a2 = np.delete(a2, xn.shape[1], axis=1)
             cn2 = np.delete(cn, xn.shape[1])
-            sol2 = np.linalg.lstsq(a2, rhs2, rcond=None)[0] / cn2
+            sol2 = _qr_solve(a2, rhs2)[0] / cn2
             sig = np.concatenate([[d_t], sol2[xn.shape[1] :]])
         amat, b = _real_state_space(a_cur)
         new = _split_poles(np.linalg.eigvals(amat - np.outer(b, sig[1:]) / d_t))

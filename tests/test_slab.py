@@ -1,0 +1,93 @@
+"""Normal-incidence slab R/T against REFERENCES item 10 check values."""
+
+import numpy as np
+import pytest
+
+from kkcheck import materials
+from kkcheck.errors import InputError
+from kkcheck.rational import model_from_terms
+from kkcheck.slab import coherent_slab, compare_slab, film_on_substrate, incoherent_slab
+
+
+@pytest.mark.parametrize(
+    "n, d, R, T",
+    [
+        # REFERENCES item 10 [V], air, lambda = 500 nm
+        (1.5, 500 / (4 * 1.5), ((1.5**2 - 1) / (1.5**2 + 1)) ** 2, None),  # quarter-wave, 0.147929
+        (1.5, 500 / (2 * 1.5), 0.0, None),  # half-wave
+        (2 + 0.1j, 123, 0.010397, 0.688818),
+        (0.2 + 3j, 20, 0.582049, 0.304298),
+    ],
+)
+def test_coherent_slab_reference_values(n, d, R, T):
+    rt = coherent_slab(np.array([n]), d, 500.0)
+    assert rt.R[0] == pytest.approx(R, abs=1e-6)
+    if T is not None:
+        assert rt.T[0] == pytest.approx(T, abs=1e-6)
+    else:  # lossless: R + T = 1
+        assert rt.R[0] + rt.T[0] == pytest.approx(1.0, abs=1e-12)
+    assert R == pytest.approx(0.147929, abs=1e-6) or R == 0.0 or T is not None
+
+
+def test_incoherent_glass():
+    # REFERENCES item 10 [V]: glass n = 1.5, T = 2n/(n^2+1) = 0.923077, R = 0.076923
+    rt = incoherent_slab(np.array([1.5 + 0j]), 1e6, 500.0)
+    assert rt.T[0] == pytest.approx(0.923077, abs=1e-6)
+    assert rt.R[0] == pytest.approx(0.076923, abs=1e-6)
+
+
+def _matrix_rt(layers, lam):
+    # characteristic matrix of Born & Wolf (REFERENCES item 10), air on both sides
+    m = np.eye(2, dtype=complex)
+    for n, d in layers:
+        dl = 2 * np.pi * n * d / lam
+        m = m @ np.array([[np.cos(dl), -1j * np.sin(dl) / n], [-1j * n * np.sin(dl), np.cos(dl)]])
+    b, c = m @ np.array([1.0, 1.0])
+    return abs((b - c) / (b + c)) ** 2, abs(2 / (b + c)) ** 2
+
+
+def test_incoherent_equals_phase_average_of_coherent():
+    # REFERENCES item 10 [V]: the incoherent formula equals the phase-averaged coherent result
+    n, lam = 1.5 + 2e-6j, 500.0
+    ds = np.linspace(2e4, 2e4 + lam / 1.5, 2001)[:-1]
+    avg = np.mean([_matrix_rt([(n, d)], lam) for d in ds], axis=0)
+    rt = incoherent_slab(np.array([n]), ds.mean(), lam)
+    assert rt.R[0] == pytest.approx(avg[0], abs=2e-5)
+    assert rt.T[0] == pytest.approx(avg[1], abs=2e-5)
+
+
+def test_film_on_substrate_equals_phase_average():
+    # film formula (REFERENCES item 10, [M]) checked against the characteristic matrix averaged
+    # over the substrate phase (independent numerical route)
+    nf, ns, lam = 2 + 0.1j, 1.5 + 1e-6j, 500.0
+    ds = np.linspace(1e5, 1e5 + lam / 1.5, 2001)[:-1]
+    avg = np.mean([_matrix_rt([(nf, 123.0), (ns, d)], lam) for d in ds], axis=0)
+    rt = film_on_substrate(np.array([nf]), 123.0, ns, 1e5, lam)
+    assert rt.R[0] == pytest.approx(avg[0], abs=2e-5)
+    assert rt.T[0] == pytest.approx(avg[1], abs=2e-5)
+    # a film of index 1 leaves bare glass: the incoherent glass values of item 10
+    bare = film_on_substrate(np.array([1.0 + 0j]), 50.0, 1.5, 1e6, lam)
+    assert bare.T[0] == pytest.approx(0.923077, abs=1e-6)
+
+
+def test_compare_slab():
+    w = np.linspace(0.5, 6, 200)
+    eps = materials.rakic_ld(w)
+    wp, f0, g0, osc = materials.RAKIC_AU
+    exact = model_from_terms(
+        1.0,
+        drude=[(np.sqrt(f0) * wp, g0)],
+        lorentz=[(f * wp**2 / w0**2, w0, g) for f, g, w0 in osc],
+    )
+    c = compare_slab(w, eps, exact, 30.0)
+    assert c.max_dR < 1e-10 and c.max_dT < 1e-10 and c.geometry == "free-standing"
+    shifted = model_from_terms(1.1, drude=[(np.sqrt(f0) * wp, g0)])
+    c2 = compare_slab(w, eps, shifted, 30.0, substrate_n=1.5)
+    # the error must show: direct R/T of the two eps arrays (closed form of item 10)
+    lam = 1239.841984 / w
+    a = film_on_substrate(np.sqrt(eps), 30.0, 1.5, 1e6, lam)
+    b = film_on_substrate(np.sqrt(shifted.eps(w)), 30.0, 1.5, 1e6, lam)
+    assert c2.max_dR == pytest.approx(np.max(np.abs(a.R - b.R)), rel=1e-12)
+    assert c2.max_dR > 1e-3
+    with pytest.raises(InputError, match="thickness"):
+        compare_slab(w, eps, exact, -1.0)
