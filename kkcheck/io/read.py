@@ -805,8 +805,8 @@ def read_table(
         used = check.detected
         if used == "exp(+iwt)":
             notes.append(
-                f"convention: {which} < 0 at {100 * check.fraction_negative:.0f}% of points, "
-                "so the file is in exp(+iwt); imaginary part negated to exp(-iwt)"
+                f"convention: negative {which} carries {100 * check.negative_weight:.0f}% of "
+                f"sum |{which}|, so the file is in exp(+iwt); imaginary part negated to exp(-iwt)"
             )
     else:
         used = convention
@@ -814,8 +814,8 @@ def read_table(
             notes.append("convention: exp(+iwt) given; imaginary part negated to exp(-iwt)")
         elif check.detected == "exp(+iwt)":
             notes.append(
-                f"convention: {which} < 0 at {100 * check.fraction_negative:.0f}% of points "
-                "(looks like exp(+iwt)), but exp(-iwt) was given; kept as written"
+                f"convention: negative {which} carries {100 * check.negative_weight:.0f}% of "
+                f"sum |{which}| (looks like exp(+iwt)), but exp(-iwt) was given; kept as written"
             )
     converted = used == "exp(+iwt)"
     if converted:
