@@ -320,3 +320,22 @@ def test_options_are_input_errors(tmp_path):
     p.write_text("1,2,3\n2,2,3\n3,2,3\n")
     with pytest.raises(InputError, match=r"^unknown axis 'furlong'; expected one of energy_ev"):
         read_table(p, axis="furlong", quantity="nk")
+
+
+def test_first_fault_in_file_order_is_reported(tmp_path):
+    # a fault in column 3 on line 3 comes before a fault in column 1 on line 5
+    p = tmp_path / "order.csv"
+    p.write_text("energy_ev,n,k\n1,2,3\n2,2,x\n3,2,3\ny,2,3\n")
+    with pytest.raises(InputError, match=r"order\.csv:3: column 3 \(k\)"):
+        read_table(p)
+
+
+def test_fault_deep_in_a_large_table(tmp_path):
+    rows = [f"{1 + i * 1e-3!r},1.5,0.01" for i in range(5000)]
+    rows[4321] = "5.321,1.5,0.0l"  # letter l typed for digit 1
+    p = tmp_path / "large.csv"
+    p.write_text("energy_ev,n,k\n" + "\n".join(rows) + "\n")
+    with pytest.raises(InputError) as info:
+        read_table(p)
+    assert info.value.line == 4323  # header is line 1, row index 4321 is line 4323
+    assert info.value.message == "column 3 (k): expected a number, found '0.0l'"

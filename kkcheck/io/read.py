@@ -93,6 +93,9 @@ _NK_EPS_RTOL = 1e-3
 _AXIS_RTOL = 1e-6
 
 _NUMBER = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eEdD][+-]?\d+)?", re.ASCII)
+_NUMBER_COLUMN = re.compile(
+    r"(?:{n})(?:\n(?:{n}))*".format(n=r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"), re.ASCII
+)
 _NONFINITE = re.compile(r"[+-]?(?:nan|inf|infinity)", re.ASCII | re.IGNORECASE)
 _DECIMAL_COMMA = re.compile(r"[+-]?\d*,\d+(?:[eE][+-]?\d+)?", re.ASCII)
 _BAD_CHARS = re.compile(r"[\x00-\x08\x0b-\x0c\x0e-\x1f\x7f-\x9f]")
@@ -213,6 +216,22 @@ def _cells(body: str, delim: str, shown: str, lineno: int) -> list[str]:
     except (csv.Error, StopIteration) as exc:
         raise InputError(f"cannot split the row into cells ({exc})", shown, lineno) from None
     return [c.strip() for c in row]
+
+
+def _split_all(data: list[tuple[int, str]], delim: str, shown: str) -> list[list[str]]:
+    """Cells of every data line (one csv reader for all lines: fast on large files)."""
+    if delim == " ":
+        return [b.split() for _, b in data]
+    reader = csv.reader((b for _, b in data), delimiter=delim, skipinitialspace=True, strict=False)
+    out = []
+    try:
+        for row in reader:
+            out.append([c.strip() for c in row])
+    except csv.Error as exc:
+        raise InputError(
+            f"cannot split the row into cells ({exc})", shown, data[len(out)][0]
+        ) from None
+    return out
 
 
 def _trim(cells: list[str]) -> list[str]:
@@ -467,6 +486,54 @@ def _parse_rows(
     if lay.nk_check_cols:
         wanted += list(lay.nk_check_cols)
     sig = list(lay.sigma_cols) if lay.sigma_cols else []
+    fast = _parse_fast(rows, lay, wanted, sig)
+    if fast is not None:
+        cols = fast
+    else:
+        cols = _parse_slow(rows, lay, wanted, sig, delim, shown, header_line)
+
+    def arr(c):
+        return cols[c]
+
+    return _Parsed(
+        lines=np.array([r[0] for r in rows], dtype=int),
+        axis_values=arr(lay.axis_col),
+        extra_axes=tuple(arr(c) for c, _ in lay.extra_axes),
+        v1=arr(lay.value_cols[0]),
+        v2=arr(lay.value_cols[1]),
+        nk_check=(arr(lay.nk_check_cols[0]), arr(lay.nk_check_cols[1]))
+        if lay.nk_check_cols
+        else None,
+        s1=arr(sig[0]) if sig else None,
+        s2=arr(sig[1]) if sig else None,
+    )
+
+
+def _parse_fast(rows, lay: _Layout, wanted, sig) -> dict[int, np.ndarray] | None:
+    """All cells plain finite numbers in rows of the right length: convert column-wise.
+
+    Returns None when anything is unusual; the row-by-row parser then finds the first fault
+    in file order and words the error.
+    """
+    n = lay.ncols
+    if any(len(cells) != n for _, cells in rows):
+        return None
+    out = {}
+    for c in wanted + sig:
+        tokens = [cells[c] for _, cells in rows]
+        if not _NUMBER_COLUMN.fullmatch("\n".join(tokens)):
+            return None
+        try:
+            v = np.array(tokens, dtype=float)
+        except ValueError:
+            return None
+        if not np.all(np.isfinite(v)):
+            return None
+        out[c] = v
+    return out
+
+
+def _parse_slow(rows, lay: _Layout, wanted, sig, delim, shown, header_line):
     cols: dict[int, list[float]] = {c: [] for c in wanted + sig}
     where = f" as in the header (line {header_line})" if header_line else " as in the first row"
     for lineno, cells in rows:
@@ -483,22 +550,7 @@ def _parse_rows(
             cols[c].append(_number(cells[c], shown, lineno, c + 1, lay.names[c], sigma=False))
         for c in sig:
             cols[c].append(_number(cells[c], shown, lineno, c + 1, lay.names[c], sigma=True))
-
-    def arr(c):
-        return np.asarray(cols[c], dtype=float)
-
-    return _Parsed(
-        lines=np.array([r[0] for r in rows], dtype=int),
-        axis_values=arr(lay.axis_col),
-        extra_axes=tuple(arr(c) for c, _ in lay.extra_axes),
-        v1=arr(lay.value_cols[0]),
-        v2=arr(lay.value_cols[1]),
-        nk_check=(arr(lay.nk_check_cols[0]), arr(lay.nk_check_cols[1]))
-        if lay.nk_check_cols
-        else None,
-        s1=arr(sig[0]) if sig else None,
-        s2=arr(sig[1]) if sig else None,
-    )
+    return {c: np.asarray(v, dtype=float) for c, v in cols.items()}
 
 
 # ------------------------------------------------------------------------------------------
@@ -792,7 +844,7 @@ def read_table(
         else:
             lay = _layout_without_header(ncols, axis_opt, quantity_opt, shown, first_line)
             header_line = None
-    rows = [(ln, _cells(b, delim, shown, ln)) for ln, b in data]
+    rows = list(zip((ln for ln, _ in data), _split_all(data, delim, shown), strict=True))
     parsed = _parse_rows(rows, lay, delim, shown, header_line)
     energy = _check_axis(parsed, lay, shown)
     eps, s1, s2 = _values_to_eps(parsed, lay, shown)

@@ -116,14 +116,24 @@ def _frame_of(data) -> tuple[pd.DataFrame, Dataset | None]:
     raise TypeError(f"expected a Dataset, Spectrum or DataFrame, got {type(data).__name__}")
 
 
-def _cell(v) -> str:
-    if isinstance(v, (bool, np.bool_)):
-        return str(int(v))
-    if isinstance(v, (int, np.integer)):
-        return str(int(v))
-    if isinstance(v, (float, np.floating)):
-        return repr(float(v))  # shortest string that reads back to the same float
-    return str(v).translate(_TEXT_FORBIDDEN)
+def _column_text(values: np.ndarray) -> list[str]:
+    """Cells of one column: floats as shortest round-trip repr, ints as ints, text sanitised."""
+    arr = np.asarray(values)
+    if arr.dtype.kind == "b":
+        return [str(int(v)) for v in arr.tolist()]
+    if arr.dtype.kind in "iu":
+        return list(map(str, arr.tolist()))
+    if arr.dtype.kind == "f":
+        return list(map(repr, arr.astype(float).tolist()))
+    out = []
+    for v in arr.tolist():
+        if isinstance(v, float):
+            out.append(repr(v))
+        elif isinstance(v, int) and not isinstance(v, bool):
+            out.append(str(v))
+        else:
+            out.append(str(v).translate(_TEXT_FORBIDDEN))
+    return out
 
 
 def write_table_csv(
@@ -204,9 +214,9 @@ def write_table_csv(
         head += str(line).splitlines() or [""]
     out = ["# " + h.replace("\r", " ") for h in head]
     out.append(",".join([axis, *map(str, cols)]))
-    columns = [axis_values[order]] + [frame[c].to_numpy()[order] for c in cols]
-    for values in zip(*columns, strict=True):
-        out.append(",".join(_cell(v) for v in values))
+    columns = [_column_text(axis_values[order])]
+    columns += [_column_text(frame[c].to_numpy()[order]) for c in cols]
+    out.extend(map(",".join, zip(*columns, strict=True)))
     _atomic_write(target, "\n".join(out) + "\n")
     return target
 
