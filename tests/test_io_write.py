@@ -13,7 +13,7 @@ import pytest
 
 from kkcheck import __version__
 from kkcheck.errors import InputError
-from kkcheck.io import read_table, sha256_file, write_json, write_table_csv
+from kkcheck.io import read_table, sha256_file, write_json, write_table_csv, write_text
 from kkcheck.materials import lorentz
 from kkcheck.spectrum import Dataset, Flag, Provenance, Spectrum
 
@@ -195,3 +195,13 @@ def test_text_cells_sanitised_and_unknown_columns_refused(tmp_path):
     assert len(read_table(out)) == 3
     with pytest.raises(ValueError, match=r"would not read back"):
         write_table_csv(tmp_path / "u.csv", frame.assign(mystery=1))
+
+
+def test_write_text_protected_and_atomic(tmp_path):
+    src = tmp_path / "in.csv"
+    src.write_text("x")
+    with pytest.raises(InputError, match="refusing to write over input file"):
+        write_text(src, "y", overwrite_protect=[src])
+    out = write_text(tmp_path / "notes.txt", "a\nb\n", overwrite_protect=[src])
+    assert out.read_text() == "a\nb\n" and src.read_text() == "x"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in.csv", "notes.txt"]

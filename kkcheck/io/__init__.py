@@ -10,6 +10,8 @@ write_table_csv
     comment block, readable again by :func:`read_table`.
 write_json
     Any JSON-like value (numpy types converted, NaN -> null) -> a JSON file.
+write_text
+    Any text -> a file (for other plain-text outputs), with the same guarantees.
 sha256_file
     Hex sha256 digest of a file.
 
@@ -18,6 +20,6 @@ files. Header spellings live in one table, :mod:`kkcheck.io.headers`.
 """
 
 from .read import read_table
-from .write import sha256_file, write_json, write_table_csv
+from .write import sha256_file, write_json, write_table_csv, write_text
 
-__all__ = ["read_table", "write_table_csv", "write_json", "sha256_file"]
+__all__ = ["read_table", "write_table_csv", "write_json", "write_text", "sha256_file"]

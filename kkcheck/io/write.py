@@ -30,7 +30,7 @@ from ..spectrum import Dataset, Spectrum
 from ..units import AXIS_UNITS, from_energy_ev
 from . import headers as _h
 
-__all__ = ["write_table_csv", "write_json", "sha256_file", "check_not_input"]
+__all__ = ["write_table_csv", "write_json", "write_text", "sha256_file", "check_not_input"]
 
 #: Preferred column order after the axis column; other readable columns follow.
 _ORDER = (
@@ -286,4 +286,17 @@ def write_json(path, obj, *, sort_keys: bool = False, indent: int = 2, overwrite
         _plain(obj), indent=indent, sort_keys=sort_keys, allow_nan=False, ensure_ascii=False
     )
     _atomic_write(target, text + "\n")
+    return target
+
+
+def write_text(path, text: str, *, overwrite_protect=()):
+    """Write ``text`` (UTF-8, LF line ends) atomically, refusing to touch ``overwrite_protect``.
+
+    Returns
+    -------
+    pathlib.Path
+        The path written.
+    """
+    target = check_not_input(path, overwrite_protect)
+    _atomic_write(target, text)
     return target
