@@ -75,6 +75,10 @@ class KKBasisModel:
         Matrix L, shape (P, r), with parameter covariance L @ L.T for the parameter vector
         (eps_inf, amplitudes..., drude_wp2_ev2...); zero rows for parameters held at their
         bound. Already scaled by max(1, chi2/dof) of the fit.
+    tied, in_gap : numpy.ndarray
+        Per node, True when its amplitude was tied to its neighbours / lies in a data gap
+        (see :class:`NodeSet`); kept so that a refit (e.g. by the repair stage) uses the same
+        basis and priors.
     """
 
     nodes_ev: np.ndarray
@@ -84,10 +88,17 @@ class KKBasisModel:
     drude_gamma_ev: np.ndarray
     window_ev: tuple[float, float]
     cov_sqrt: np.ndarray
+    tied: np.ndarray | None = None
+    in_gap: np.ndarray | None = None
 
     def __post_init__(self):
         for name in ("nodes_ev", "amplitudes", "drude_wp2_ev2", "drude_gamma_ev", "cov_sqrt"):
             object.__setattr__(self, name, _ro(getattr(self, name)))
+        for name in ("tied", "in_gap"):
+            v = getattr(self, name)
+            v = np.zeros(self.nodes_ev.size, bool) if v is None else np.array(v, bool, copy=True)
+            v.setflags(write=False)
+            object.__setattr__(self, name, v)
         object.__setattr__(self, "eps_inf", float(self.eps_inf))
         object.__setattr__(self, "window_ev", tuple(float(v) for v in self.window_ev))
         if self.amplitudes.shape != self.nodes_ev.shape:
@@ -133,12 +144,16 @@ class NodeSet:
         True for nodes added between data points where eps2 is strongly curved; the fit ties
         eps2 there to the cubic through the neighbouring data nodes, within the noise.
     gaps_ev : tuple of (float, float)
-        Gaps found in the data spacing, (from_ev, to_ev); they hold free nodes.
+        Gaps found in the data spacing, (from_ev, to_ev).
+    in_gap : numpy.ndarray
+        True for nodes inserted inside a gap; the fit holds their second differences to the
+        noise level (a smoothness prior, see :func:`fit_kk_basis`).
     """
 
     nodes_ev: np.ndarray
     tied: np.ndarray
     gaps_ev: tuple[tuple[float, float], ...]
+    in_gap: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -390,10 +405,12 @@ def choose_nodes(
     high = _outside_nodes(inner[-1], h_hi, high_factor * inner[-1], growth)
     nodes = np.concatenate([low, inner, high])
     all_nodes = np.union1d(nodes, tied)
+    gap_nodes = np.concatenate(extra) if extra else np.zeros(0)
     return NodeSet(
         nodes_ev=all_nodes,
         tied=np.isin(all_nodes, tied),
         gaps_ev=tuple(gaps),
+        in_gap=np.isin(all_nodes, gap_nodes),
     )
 
 
@@ -406,6 +423,7 @@ def fit_kk_basis(
     *,
     drude_gamma_ev=(),
     tied=None,
+    in_gap=None,
     weights=None,
     smoothing: float = 0.0,
     eps_inf_nonnegative: bool = False,
@@ -428,6 +446,10 @@ def fit_kk_basis(
         Nodes (see :class:`NodeSet`) whose amplitude is tied by a pseudo-observation
         (A_i - sum_j c_j A_j) / s_i = 0 +- 1, c_j the cubic Lagrange weights of the two nearest
         untied nodes on either side, s_i the eps2 noise at the node.
+    in_gap : array_like of bool, optional
+        Nodes inside data gaps: each gets the prior (A_{i-1} - 2 A_i + A_{i+1}) / s_i = 0 +- 1
+        (eps2 bends no more than its noise per node spacing), so eps2 across a gap is the
+        smoothest one that eps1 allows.
     weights : array_like, shape (M,), optional
         Extra per-point weights >= 0 multiplying the inverse variance (0 drops the point).
     smoothing : float
@@ -480,6 +502,15 @@ def fit_kk_basis(
         pen_rows.append(pen)
     if tied is not None and np.any(tied):
         pen_rows.append(_tie_rows(nodes, np.asarray(tied, bool), s_node, p_len))
+    if in_gap is not None and np.any(in_gap):
+        gi = np.nonzero(np.asarray(in_gap, bool))[0]
+        gi = gi[(gi > 0) & (gi < n_nodes - 1)]
+        pen = np.zeros((gi.size, p_len))
+        r = np.arange(gi.size)
+        pen[r, gi] = 1.0 / s_node[gi]
+        pen[r, 1 + gi] = -2.0 / s_node[gi]
+        pen[r, 2 + gi] = 1.0 / s_node[gi]
+        pen_rows.append(pen)
     a_mat, y_vec = a_data, y_data
     if pen_rows:
         pen = np.vstack(pen_rows)
@@ -513,5 +544,7 @@ def fit_kk_basis(
         drude_gamma_ev=gam,
         window_ev=(float(w_e[use].min()), float(w_e[use].max())),
         cov_sqrt=cov_sqrt,
+        tied=np.zeros(n_nodes, bool) if tied is None else np.asarray(tied, bool),
+        in_gap=np.zeros(n_nodes, bool) if in_gap is None else np.asarray(in_gap, bool),
     )
     return BasisFit(model=model, chi2=chi2, dof=dof, n_free=n_free, status=status)

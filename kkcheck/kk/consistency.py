@@ -321,7 +321,10 @@ def kk_test(
         thin_tol=opt.thin_tol,
     )
     for g0, g1 in nodeset.gaps_ev:
-        notes.append(f"gap in the data {g0:.4g}-{g1:.4g} eV: eps2 there constrained only by eps1")
+        notes.append(
+            f"gap in the data {g0:.4g}-{g1:.4g} eV: eps2 there is constrained only by eps1 "
+            "and a smoothness prior"
+        )
     use_drude = opt.drude
     if use_drude == "auto":
         low = e <= e[0] + 0.1 * (e[-1] - e[0])
@@ -336,6 +339,7 @@ def kk_test(
         u2,
         nodeset.nodes_ev,
         tied=nodeset.tied,
+        in_gap=nodeset.in_gap,
         drude_gamma_ev=gam,
         weights=wt,
         smoothing=opt.smoothing,
