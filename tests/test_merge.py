@@ -1,0 +1,288 @@
+"""Tests of kkcheck.merge: scale/offset reconciliation, blending, gaps, which source is off.
+
+Sources are built from closed-form dielectric functions (kkcheck.materials) with known
+planted scale factors, noise and gaps; the checks compare with those planted values and
+with closed forms (inverse-variance mean, linearity of the KK transform).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from kkcheck.errors import InputError
+from kkcheck.kk.kernels import pl_kk_matrix
+from kkcheck.materials import lorentz, tauc_lorentz
+from kkcheck.merge import (
+    estimate_scale_offset,
+    find_gaps,
+    merge,
+    off_source,
+    rank_references,
+)
+from kkcheck.spectrum import Dataset, Flag, Provenance
+from kkcheck.units import (
+    EV_PER_INV_CM,
+    HC_EV_NM,
+    detect_convention,
+    eps_to_nk,
+    nk_to_eps,
+    to_energy_ev,
+)
+
+
+def truth(e):
+    """Tauc–Lorentz film (Jellison & Modine 1996 closed form) plus eps_inf = 1.9."""
+    return 1.9 + tauc_lorentz(e, 122.0, 3.45, 2.54, 1.20)
+
+
+def _ds(name, e, scale=1.0, noise=2e-3, seed=0, offset=0.0, rows=True):
+    rng = np.random.default_rng(seed)
+    eps = (
+        scale * truth(e) + offset + noise * (rng.normal(size=e.size) + 1j * rng.normal(size=e.size))
+    )
+    prov = Provenance(rows=np.arange(2, e.size + 2)) if rows else Provenance()
+    return Dataset(name, e, eps, provenance=prov)
+
+
+def test_scaled_second_source_found_within_002():
+    a = _ds("uvvis", np.linspace(1.0, 3.2, 400), seed=1)
+    b = _ds("nir", np.linspace(2.6, 5.5, 300), scale=1.05, seed=2)
+    res = merge([a, b], reference="uvvis")
+    rep = {s.name: s for s in res.sources}
+    assert rep["uvvis"].reference and rep["uvvis"].scale == 1.0
+    assert abs(rep["nir"].scale - 1.05) < 0.02  # planted 5 % scale
+    assert abs(rep["nir"].eps1_offset) < 5 * rep["nir"].eps1_offset_sigma + 1e-3
+    assert rep["nir"].applied and rep["nir"].n_overlap > 20
+    assert rep["nir"].scale_sigma > 0
+    # corrected merge follows the truth (closed form) to a few noise sigmas everywhere
+    sp = res.spectrum
+    np.testing.assert_allclose(sp.eps, truth(sp.energy_ev), atol=0.02)
+    # the other way round: the reference is 1/1.05 of the other
+    rev = {s.name: s for s in merge([a, b], reference="nir").sources}
+    assert abs(rev["uvvis"].scale - 1 / 1.05) < 0.02
+
+
+def test_offset_and_scale_fitted_jointly():
+    # eps_b = 0.97 eps + 0.3 on eps1 only: the model of estimate_scale_offset exactly
+    e = np.linspace(1.5, 5.0, 500)
+    a = _ds("a", e, seed=3)
+    rng = np.random.default_rng(4)
+    eps_b = 0.97 * truth(e) + 0.3 + 2e-3 * (rng.normal(size=e.size) + 1j * rng.normal(size=e.size))
+    f = estimate_scale_offset(Dataset("b", e, eps_b), a)
+    assert f.scale == pytest.approx(0.97, abs=3e-3)
+    assert f.eps1_offset == pytest.approx(0.3, abs=0.02)
+    assert abs(f.scale - 0.97) < 5 * f.scale_sigma + 1e-4  # the error bar covers the truth
+
+
+def test_estimates_reported_but_not_applied():
+    a = _ds("a", np.linspace(1.0, 3.2, 300), seed=5)
+    b = _ds("b", np.linspace(2.6, 5.5, 300), scale=1.05, seed=6)
+    res = merge([a, b], reference="a", apply_correction=False)
+    rb = res.sources[1]
+    assert abs(rb.scale - 1.05) < 0.02 and not rb.applied
+    hi = res.spectrum.energy_ev > 3.3  # only b there: values as measured
+    np.testing.assert_allclose(res.spectrum.eps[hi], b.eps[b.energy_ev > 3.3])
+
+
+def test_chained_sources_propagate_along_overlaps():
+    # A-B-C, A and C do not overlap; C is 3 % low relative to A (planted), B is true.
+    a = _ds("A", np.linspace(1.0, 2.6, 300), seed=7)
+    b = _ds("B", np.linspace(2.3, 4.2, 300), seed=8)
+    c = _ds("C", np.linspace(3.9, 6.0, 300), scale=0.97, seed=9)
+    res = merge([a, b, c], reference="A")
+    rc = res.sources[2]
+    assert rc.scale == pytest.approx(0.97, abs=0.01)
+    assert rc.applied
+    sp = res.spectrum
+    np.testing.assert_allclose(sp.eps, truth(sp.energy_ev), atol=0.03)
+    # default reference: B holds the most points inside other sources' ranges
+    assert merge([a, b, c]).reference == "B"
+
+
+def test_three_sources_in_different_units_and_conventions():
+    rng = np.random.default_rng(10)
+    # 1. n,k on a wavelength grid [nm] (UV-visible ellipsometer)
+    lam = np.arange(250.0, 1000.0 + 1e-9, 2.0)
+    e1 = to_energy_ev(lam, "wavelength_nm")
+    o = np.argsort(e1)
+    n, k = eps_to_nk(truth(e1[o]))
+    s1 = Dataset(
+        "uvvis",
+        e1[o],
+        nk_to_eps(n + rng.normal(0, 1e-3, n.size), k + rng.normal(0, 1e-3, n.size)),
+        quantity="nk",
+        axis="wavelength_nm",
+    )
+    # 2. eps on an energy grid [eV]
+    e2 = np.linspace(0.6, 1.4, 200)
+    s2 = Dataset("nir", e2, truth(e2) + rng.normal(0, 2e-3, e2.size), axis="energy_ev")
+    # 3. wavenumber table [cm^-1] written with N = n - i k (exp(+iwt)); imaginary parts of
+    #    the truth are 0 below the gap, so make it absorbing: a weak Lorentz band at 0.3 eV
+    nu = np.arange(12000.0, 2000.0 - 1e-9, -20.0)
+    e3 = np.sort(to_energy_ev(nu, "wavenumber_cm-1"))
+    band = lorentz(e3, 0.05, 0.3, 0.05)
+    written = np.conj(truth(e3) + band)  # as the file has it
+    check = detect_convention(written.imag)
+    assert check.detected == "exp(+iwt)"
+    s3 = Dataset(
+        "ir",
+        e3,
+        np.conj(written),
+        axis="wavenumber_cm-1",
+        convention="exp(+iwt)",
+        converted=True,
+    )
+    res = merge([s1, s2, s3])
+    sp = res.spectrum
+    lo = 2000.0 * EV_PER_INV_CM
+    assert sp.range_ev[0] == pytest.approx(lo, rel=1e-12)
+    assert sp.range_ev[1] == pytest.approx(HC_EV_NM / 250.0, rel=1e-12)
+    # no scale error was planted: all scales 1 within 1 %
+    for s in res.sources:
+        assert s.scale == pytest.approx(1.0, abs=0.01), s
+    ref = truth(sp.energy_ev) + lorentz(sp.energy_ev, 0.05, 0.3, 0.05) * (sp.energy_ev < 1.5)
+    # 5 sigma: n,k noise 1e-3 becomes 2|N| 1e-3 in eps (kkcheck.units.sigma_nk_to_eps)
+    tol = 5 * (2 * np.abs(np.sqrt(ref)) * 1e-3 + 2e-3)
+    assert np.all(np.abs(sp.eps.real - ref.real) < tol)
+    assert np.all(np.abs(sp.eps.imag - ref.imag) < tol)
+    assert np.all(sp.eps.imag > -0.01)  # passive everywhere after conversion
+    assert any("converted" in s for s in res.notes)
+    assert set(sp.source_names) == {"uvvis", "nir", "ir"}
+
+
+def test_planted_gap_reported():
+    a = _ds("a", np.linspace(1.0, 2.0, 200), seed=11)
+    b = _ds("b", np.linspace(2.5, 4.0, 200), seed=12)
+    with pytest.warns(RuntimeWarning, match="no chain of overlaps"):
+        res = merge([a, b])
+    assert res.gaps_ev == ((2.0, 2.5),)
+    assert any("gap" in n for n in res.notes)
+    # a hole inside one source (points 100..139 removed) is a gap too
+    e = np.linspace(1.0, 3.0, 300)
+    keep = np.r_[0:100, 140:300]
+    gaps = find_gaps(e[keep])
+    assert gaps == ((float(e[99]), float(e[140])),)
+    # a change of density (dense then 5x sparser) is not a gap
+    x = np.r_[np.linspace(1.0, 2.0, 101), np.linspace(2.05, 4.0, 40)]
+    assert find_gaps(x) == ()
+
+
+def test_blend_is_inverse_variance_mean_with_provenance():
+    # Two sources on the same grid with given sigmas; closed form:
+    # mean = (v1/s1^2 + v2/s2^2)/(1/s1^2 + 1/s2^2), sigma = (1/s1^2 + 1/s2^2)^-1/2.
+    e = np.linspace(1.0, 2.0, 50)
+    a = Dataset("a", e, np.full(50, 2.0 + 1.0j), np.full(50, 0.1), np.full(50, 0.2))
+    b = Dataset(
+        "b",
+        e,
+        np.full(50, 3.0 + 2.0j),
+        np.full(50, 0.3),
+        np.full(50, 0.2),
+        provenance=Provenance(rows=np.arange(10, 60)),
+    )
+    res = merge([a, b], reference="a", apply_correction=False)
+    sp = res.spectrum
+    w1 = np.array([1 / 0.1**2, 1 / 0.3**2])
+    assert len(sp) == 50
+    np.testing.assert_allclose(sp.eps.real, (2.0 * w1[0] + 3.0 * w1[1]) / w1.sum())
+    np.testing.assert_allclose(sp.eps.imag, 1.5)
+    np.testing.assert_allclose(sp.sigma_eps1, w1.sum() ** -0.5)
+    np.testing.assert_allclose(sp.sigma_eps2, 0.2 / np.sqrt(2))
+    assert np.all(sp.flags & Flag.BLENDED) and np.all(sp.flags & Flag.OVERLAP)
+    assert np.all(sp.source == 0)  # "a" carries the larger weight
+    # side by side: every point kept, labelled with its source and file row
+    sbs = merge([a, b], reference="a", apply_correction=False, overlap="side_by_side")
+    s = sbs.spectrum
+    assert len(s) == 100 and sorted(set(s.source)) == [0, 1]
+    np.testing.assert_array_equal(s.row[s.source == 1], np.arange(10, 60))
+    np.testing.assert_array_equal(s.eps[s.source == 1], b.eps)
+    assert np.all(s.flags & Flag.OVERLAP) and not np.any(s.flags & Flag.BLENDED)
+
+
+def _kk_relative_residual(sp):
+    """Stand-in KK score: relative rms of eps1 - (c + K eps2), c fitted.
+
+    K = pl_kk_matrix: the exact KK partner of the piecewise-linear eps2 (verified against
+    scipy quad in kkcheck.kk.kernels); end points dropped (log singularity of the
+    truncated window). Dividing by the spread of eps1 makes it invariant under
+    eps -> s eps + o, as chi2/dof with a free eps_inf and sigmas scaled with the data is.
+    """
+    e = sp.energy_ev
+    K = pl_kk_matrix(e, e[1:-1])
+    r = sp.eps.real[1:-1] - K @ sp.eps.imag
+    r = r - r.mean()
+    return float(np.sqrt(np.mean(r**2)) / np.std(sp.eps.real))
+
+
+def _lorentz_sources(scale_b):
+    """A single Lorentz oscillator (closed-form KK pair) seen by three instruments.
+
+    The window 0.05-60 eV holds nearly all of eps2, so the truncated KK transform plus a
+    constant reproduces eps1 closely; source B carries a planted scale error.
+    """
+    rng = np.random.default_rng(13)
+
+    def f(e):
+        return 1.0 + lorentz(e, 4.0, 3.0, 0.5)
+
+    def mk(name, lo, hi, n, s):
+        e = np.geomspace(lo, hi, n)
+        return Dataset(name, e, s * f(e) + 1e-4 * (rng.normal(size=n) + 1j * rng.normal(size=n)))
+
+    return [
+        mk("A", 0.05, 2.6, 500, 1.0),
+        mk("B", 2.2, 5.0, 400, scale_b),
+        mk("C", 4.4, 60.0, 500, 1.0),
+    ]
+
+
+def test_rank_references_names_the_scaled_source():
+    trials = rank_references(_lorentz_sources(1.05), _kk_relative_residual)
+    assert trials[0].hypothesis == "suspect" and trials[0].source == "B"
+    assert trials[0].ratio == 1.0
+    assert all(t.ratio > 5 for t in trials[1:])  # every other hypothesis far worse
+    best_b = {s.name: s for s in trials[0].sources}["B"]
+    assert best_b.applied and best_b.scale == pytest.approx(1.05, abs=0.01)
+    assert off_source(trials) == "B"
+
+
+def test_rank_references_reference_mode_ties_by_kk_linearity():
+    # Closed-form property: KK is linear and eps_inf absorbs a constant, so merges that
+    # differ by eps -> s eps + o score the same under a scale-invariant score. Trusting
+    # A, B or C along a chain gives exactly such merges.
+    trials = rank_references(_lorentz_sources(1.05), _kk_relative_residual, mode="reference")
+    corrected = [t.score for t in trials if t.hypothesis == "reference"]
+    assert len(corrected) == 3
+    np.testing.assert_allclose(corrected, corrected[0], rtol=1e-8)
+    base = [t for t in trials if t.hypothesis == "uncorrected"][0]
+    assert base.score > 10 * corrected[0]
+    assert off_source(trials) is None  # no suspect trials: cannot name a source
+
+
+def test_two_sources_cannot_be_told_apart():
+    # With two sources the two corrected merges differ by a global scale: they tie.
+    a = _ds("a", np.linspace(1.0, 3.2, 300), seed=14)
+    b = _ds("b", np.linspace(2.6, 5.5, 300), scale=1.05, seed=15)
+    trials = rank_references([a, b], _kk_relative_residual)
+    sus = [t.score for t in trials if t.hypothesis == "suspect"]
+    assert sus[0] == pytest.approx(sus[1], rel=1e-3)
+    assert off_source(trials) is None
+
+
+def test_bad_input_messages():
+    a = _ds("a", np.linspace(1.0, 2.0, 50))
+    b = _ds("b", np.linspace(3.0, 4.0, 50))
+    with pytest.raises(InputError, match="overlap must be one of"):
+        merge([a, b], overlap="average")
+    with pytest.raises(InputError, match="not one of the sources"):
+        merge([a, b], reference="c")
+    with pytest.raises(InputError, match="at least one dataset"):
+        merge([])
+    with pytest.raises(InputError, match="at least 4"):
+        estimate_scale_offset(a, b)
+    with pytest.warns(RuntimeWarning, match="no chain of overlaps"):
+        res = merge([a, b], reference="a")
+    assert np.isnan(res.sources[1].scale) and not res.sources[1].applied
+    # duplicate names are made unique, and said so by the name itself
+    assert merge([a, _ds("a", np.linspace(1.5, 2.5, 50))]).spectrum.source_names == ("a", "a#2")
