@@ -1,7 +1,8 @@
 """Report figures: one function per figure, plain values in, PNG and PDF files out.
 
 Every function draws on its own :class:`matplotlib.figure.Figure` (never ``pyplot``, so no
-global figure registry and no interactive backend are touched), writes ``<stem>.png`` at
+global figure registry is touched, and the caller's backend is left alone: saving by file
+format uses matplotlib's Agg and PDF renderers directly), writes ``<stem>.png`` at
 :data:`FIGURE_DPI` and ``<stem>.pdf`` next to it, and returns the PNG path. Style settings
 are applied inside :func:`matplotlib.rc_context` and restored on return.
 
@@ -31,17 +32,14 @@ from collections.abc import Sequence
 from pathlib import Path
 
 import matplotlib
+import matplotlib.ticker as mticker
+import matplotlib.transforms as mtransforms
+import numpy as np
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
 
-matplotlib.use("Agg", force=False)  # no-op when a backend is already chosen by the caller
-
-import matplotlib.ticker as mticker  # noqa: E402
-import matplotlib.transforms as mtransforms  # noqa: E402
-import numpy as np  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
-from matplotlib.lines import Line2D  # noqa: E402
-from matplotlib.patches import Patch  # noqa: E402
-
-from ..units import HC_EV_NM  # noqa: E402
+from ..units import HC_EV_NM
 
 __all__ = [
     "FIGURE_DPI",
@@ -573,6 +571,13 @@ def plot_residuals(
                 if big > 10 * threshold:
                     ax.set_yscale("symlog", linthresh=threshold, linscale=1.0)
                     ax.yaxis.set_major_formatter(mticker.FuncFormatter(_num_label))
+                    lo_r, hi_r = float(np.nanmin(r)), float(np.nanmax(r))
+                    ticks = [-threshold, 0.0, threshold]
+                    k0 = int(np.floor(np.log10(threshold))) + 1
+                    for k in range(k0, int(np.ceil(np.log10(big))) + 1):
+                        ticks += [10.0**k] if hi_r >= 10.0 ** (k - 1) else []
+                        ticks += [-(10.0**k)] if lo_r <= -(10.0 ** (k - 1)) else []
+                    ax.yaxis.set_major_locator(mticker.FixedLocator(sorted(ticks)))
                 else:
                     lim = max(1.3 * threshold, 1.1 * big)
                     ax.set_ylim(-lim, lim)
@@ -741,24 +746,32 @@ def plot_fit(path_stem, energy_ev, eps_data, eps_fit, fit_range_ev=None) -> Path
         axes[2].plot(e[finite], rel[finite], color=PALETTE[0], linewidth=1.1)
         if np.any(finite):
             axes[2].set_yscale("log")
+            axes[2].yaxis.set_major_formatter(mticker.FuncFormatter(_num_label))
         axes[2].set_ylabel("relative\nerror [%]")
         lo, hi = _energy_limits(e)
         extrap = False
         if fit_range_ev is not None:
             flo, fhi = float(fit_range_ev[0]), float(fit_range_ev[1])
+            # shade only where data lie outside the fitted range (tolerance: 0.1 % of range)
+            spans = [(lo / 2, flo)] if lo < flo * (1 - 1e-3) else []
+            spans += [(fhi, hi * 2)] if hi > fhi * (1 + 1e-3) else []
             for ax in axes:
-                extrap |= _shade_spans(ax, [(lo / 2, flo), (fhi, hi * 2)], GAP_COLOUR, 0.2)
+                extrap |= _shade_spans(ax, spans, GAP_COLOUR, 0.2)
         _set_energy_axis(list(axes), lo, hi)
         handles, labels = axes[0].get_legend_handles_labels()
         if extrap:
             handles.append(Patch(facecolor=GAP_COLOUR, alpha=0.2))
             labels.append("outside fitted range")
         axes[0].legend(handles, labels, loc="best")
-        if np.any(finite):
+        inside = np.isfinite(rel)
+        where = ""
+        if fit_range_ev is not None:
+            inside &= (e >= float(fit_range_ev[0])) & (e <= float(fit_range_ev[1]))
+            where = " in fitted range"
+        if np.any(inside):
             title = (
-                f"Pole-pair model against data (relative error: rms "
-                f"{np.sqrt(np.mean(rel[np.isfinite(rel)] ** 2)):.3g} %, "
-                f"max {np.nanmax(rel[np.isfinite(rel)]):.3g} %)"
+                f"Pole-pair model against data (relative error{where}: rms "
+                f"{np.sqrt(np.mean(rel[inside] ** 2)):.3g} %, max {np.max(rel[inside]):.3g} %)"
             )
         else:
             title = "Pole-pair model against data"
