@@ -313,7 +313,10 @@ def estimate_scale_offset(
     the Huber norm ``HuberT`` (t = 1.345) by iteratively reweighted least squares (Huber
     1964; Holland & Welsch 1977); the standard errors are RLM's. When the eps1 rows carry no
     information to tell a scale from an offset (the reference eps1 nearly constant and eps2
-    nearly zero in the overlap), only the scale is fitted and the note says so. Regression
+    nearly zero in the overlap), only the scale is fitted and the note says so. The same
+    happens when the fitted offset is not significant (|o| < 3 sd) and keeping it would
+    inflate the scale's standard error more than threefold (nearly collinear columns, as
+    in a transparent overlap): the simpler model is reported, with a note. Regression
     dilution from noise in the reference is neglected (it is second order when the overlap
     spans structure much larger than the noise).
 
@@ -355,6 +358,16 @@ def estimate_scale_offset(
         X = X[:, :1]
         note = "eps1 offset cannot be told from the scale in this overlap; scale fitted alone"
     coef, bse = _robust_fit(X, y)
+    if X.shape[1] == 2 and abs(coef[1]) < 3 * bse[1]:
+        # offset not significant: if it costs much precision (scale and offset nearly
+        # collinear, e.g. a transparent overlap), the simpler scale-only model is reported
+        c1, b1 = _robust_fit(X[:, :1], y)
+        if bse[0] > 3 * b1[0]:
+            note = (
+                f"eps1 offset not significant ({coef[1]:.3g} +- {bse[1]:.2g}) and nearly "
+                "collinear with the scale in this overlap; scale fitted alone"
+            )
+            X, coef, bse = X[:, :1], c1, b1
     if X.shape[1] == 1:
         return ScaleFit(float(coef[0]), float(bse[0]), 0.0, float("nan"), n, note)
     return ScaleFit(float(coef[0]), float(bse[0]), float(coef[1]), float(bse[1]), n, note)
@@ -442,7 +455,8 @@ def _propagate(n: int, root: int, fits) -> dict[int, tuple[ScaleFit, int]]:
             cv = c + (f.scale_sigma / f.scale) ** 2 + 1e-12
             if cv >= cost.get(v, np.inf):
                 continue
-            so = f.eps1_offset_sigma if np.isfinite(f.eps1_offset_sigma) else 0.0
+            # a NaN offset sigma (offset not fitted) stays NaN along the path
+            so = f.eps1_offset_sigma
             So = Fu.eps1_offset_sigma
             comp = ScaleFit(
                 f.scale * Fu.scale,
