@@ -272,3 +272,15 @@ def test_bad_input_raises_input_error():
         kk_test(sp, anchors_ev=[10.0])
     r = kk_test(sp, anchors_ev=[2.0])
     assert r.anchors_ev == (2.0,)
+
+
+@pytest.mark.parametrize("name", ["rakic_au", "tauc_lorentz", "two_oscillator"])
+def test_noiseless_tables_use_the_floor_and_pass(name):
+    # a table computed from a closed form without noise: the documented floor (1e-4 |eps|)
+    # keeps chi2 finite, and the exact KK-consistent model must not be called inconsistent
+    r = kk_test(clean_case(name, 0.0))
+    assert r.verdict == "consistent"
+    np.testing.assert_allclose(
+        r.sigma_eps1, 1e-4 * np.abs(r.eps1_model + 1j * r.eps2_model), rtol=1e-3
+    )
+    assert np.isfinite(r.chi2_dof) and r.chi2_dof < 1.0

@@ -518,7 +518,13 @@ def fit_kk_basis(
         y_vec = np.concatenate([y_data, np.zeros(pen.shape[0])])
     norms = np.linalg.norm(a_mat, axis=0)
     norms[norms == 0] = 1.0
-    xs, status = _solve_nonneg(a_mat / norms, y_vec, free_first=not eps_inf_nonnegative)
+    a_sc = a_mat / norms
+    if a_sc.shape[0] > 2 * a_sc.shape[1]:
+        # same minimiser with far fewer rows: ||a x - y||^2 = ||r x - q^T y||^2 + const, and
+        # the singular values of a[:, free] are those of r[:, free]
+        q, r = np.linalg.qr(a_sc)
+        a_sc, y_vec = r, q.T @ y_vec
+    xs, status = _solve_nonneg(a_sc, y_vec, free_first=not eps_inf_nonnegative)
     p = xs / norms
     resid = y_data - a_data @ p
     chi2 = float(resid @ resid)
@@ -530,7 +536,7 @@ def fit_kk_basis(
     n_free = int(free.sum())
     dof = max(1, y_data.size - n_free)
     # covariance of the free parameters from the (scaled) design incl. the penalty rows
-    jf = a_mat[:, free] / norms[free]
+    jf = a_sc[:, free]
     _, sv, vt = np.linalg.svd(jf, full_matrices=False)
     keep = sv > 1e-10 * sv[0]
     lf = (vt[keep].T / sv[keep]) / norms[free][:, None]

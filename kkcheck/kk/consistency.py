@@ -27,6 +27,14 @@ What no finite window can reveal: a constant offset of eps1 (absorbed by eps_inf
 smooth, nearly even distortions of eps1 (a + b w^2 + c / w^2) that absorption outside the
 window could produce. Both notes appear in every result.
 
+Measured behaviour (tests/test_consistency.py and 10-seed runs at noise 0.002, 0.01, 0.03 in
+n,k): eight clean materials (Rakić Au and Ag, Sellmeier silica, Tauc–Lorentz, a two-oscillator
+semiconductor measured below its resonances, a Drude–Lorentz metal, a 10 cm^-1 phonon,
+heteroscedastic noise) gave chi2/dof 0.83-1.64 and no false alarm in 240 runs; four planted
+faults of 15-25 sigma (k shifted 40 meV, a k bump without n partner, an n distortion over
+100 nm, k x 3) were found, at the planted place, in all 120 runs. Cost: dense, O(M P^2) for M
+points and P nodes; 0.1 s at 600 points, 0.8 s at 2000, ~11 s at 5000 (one core).
+
 References
 ----------
 .. [1] A. B. Kuzmenko, "Kramers–Kronig constrained variational analysis of optical spectra,"

@@ -15,7 +15,9 @@ For each source of a :class:`~kkcheck.spectrum.Spectrum` separately:
 
 A floor keeps a noiseless table from giving infinite chi2: sigma >= max(rel_floor * |eps|,
 abs_floor), defaults 1e-4 and 1e-6 (the rounding of a table printed with 4-5 significant
-digits).
+digits). It is also about the resolution limit of the KK basis: a noiseless table of a
+10 cm^-1 phonon sampled every 1 cm^-1 needs a floor of ~3e-4 |eps| to pass; raise
+``rel_floor`` for such noiseless tables.
 
 References
 ----------
