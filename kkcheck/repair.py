@@ -18,8 +18,9 @@ Uncertainty band: first-order propagation of the parameter covariance of the bou
 least-squares fit, restricted to the free (not at bound) parameters and scaled by
 max(1, chi2/dof) (:meth:`kkcheck.kk.basisfit.KKBasisModel.eps_sigma`). At measured points
 that are kept, the band is the data's own noise. Parameters held at the bound eps2 = 0 do not
-contribute, so where the model's eps2 is exactly zero its eps2 band is zero: it states
-"no absorption is needed here", not a measurement.
+contribute, so where the model's eps2 is exactly zero its propagated eps2 band is zero ("no
+absorption is needed here", not a measurement); the band is therefore floored at
+max(1e-4 |eps|, 1e-6), the noise floor of :mod:`kkcheck.kk.noise`.
 
 References
 ----------
@@ -41,9 +42,21 @@ from .kk.consistency import KKTestResult
 from .spectrum import Flag, Spectrum
 from .units import AXIS_UNITS, eps_to_nk, from_energy_ev
 
-__all__ = ["POLICIES", "Change", "RepairResult", "repair", "default_grid"]
+__all__ = [
+    "POLICIES",
+    "BAND_REL_FLOOR",
+    "BAND_ABS_FLOOR",
+    "Change",
+    "RepairResult",
+    "repair",
+    "default_grid",
+]
 
 POLICIES = ("none", "replace_flagged", "replace_flagged_and_regions", "model")
+#: Floor of the model band, max(BAND_REL_FLOOR * |eps|, BAND_ABS_FLOOR): the same floor as the
+#: noise estimate (:mod:`kkcheck.kk.noise`), so no value is ever claimed to be exact.
+BAND_REL_FLOOR = 1e-4
+BAND_ABS_FLOOR = 1e-6
 
 
 @dataclass(frozen=True)
@@ -280,6 +293,9 @@ def repair(
         model = fit.model
     mod = model.eps(grid)
     band1, band2 = model.eps_sigma(grid)
+    floor = np.maximum(BAND_REL_FLOOR * np.abs(mod), BAND_ABS_FLOOR)
+    band1 = np.maximum(band1, floor)
+    band2 = np.maximum(band2, floor)
     out = np.array(mod)
     s1 = np.array(band1)
     s2 = np.array(band2)
