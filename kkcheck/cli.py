@@ -65,8 +65,10 @@ def _add_input_options(p: argparse.ArgumentParser) -> None:
     g.add_argument(
         "--flagged",
         choices=("keep", "downweight", "replace"),
-        default="downweight",
-        help="what the KK test and fit do with flagged points (default: downweight)",
+        default="replace",
+        help="flagged spikes/steps: keep (flags only), downweight (10x sigma in the KK test "
+        "and fit), replace (default: downweight in the KK test, then replace by the "
+        "KK-consistent prediction before the fit; every change recorded)",
     )
     g = p.add_argument_group("Kramers-Kronig test")
     g.add_argument(

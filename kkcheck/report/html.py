@@ -128,8 +128,8 @@ def _fmt(value, digits: int = 4) -> str:
         hasattr(value, "tolist") and not isinstance(value, str)
     ):
         seq = value.tolist() if hasattr(value, "tolist") else value
-        if isinstance(seq, list):
-            return ", ".join(_fmt(v, digits) for v in seq)
+        if isinstance(seq, (list, tuple)):
+            return ", ".join(_fmt(v, digits) for v in seq) if seq else "(none)"
         return _fmt(seq, digits)
     return str(value)
 
