@@ -37,7 +37,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
-from .kk.basisfit import fit_kk_basis
+from .kk.basisfit import fit_kk_basis, unsupported_nodes
 from .kk.consistency import KKTestResult
 from .spectrum import Flag, Spectrum
 from .units import AXIS_UNITS, eps_to_nk, from_energy_ev
@@ -176,16 +176,6 @@ def default_grid(energy_ev, gap_factor: float = 6.0, max_fill: int = 50) -> np.n
     return np.union1d(e, np.concatenate(extra)) if extra else e
 
 
-def _unsupported(nodes: np.ndarray, kept_ev: np.ndarray, all_ev: np.ndarray) -> np.ndarray:
-    """Nodes inside the data window with no kept data point between their neighbour nodes."""
-    prev = np.concatenate([[nodes[0]], nodes[:-1]])
-    nxt = np.concatenate([nodes[1:], [nodes[-1]]])
-    lo = np.searchsorted(kept_ev, prev, side="left")
-    hi = np.searchsorted(kept_ev, nxt, side="right")
-    inside = (nodes >= all_ev.min()) & (nodes <= all_ev.max())
-    return inside & (hi <= lo)
-
-
 def _replace_masks(spectrum: Spectrum, kk: KKTestResult, policy: str):
     """Per data point: (replace eps1, replace eps2, reason, in_region) under ``policy``."""
     m = len(spectrum)
@@ -286,7 +276,7 @@ def repair(
             kk_result.sigma_eps2,
             old_model.nodes_ev,
             tied=old_model.tied,
-            in_gap=old_model.in_gap | _unsupported(old_model.nodes_ev, e[weights > 0], e),
+            in_gap=old_model.in_gap | unsupported_nodes(old_model.nodes_ev, e[weights > 0], e),
             drude_gamma_ev=old_model.drude_gamma_ev,
             weights=weights,
         )

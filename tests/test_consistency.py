@@ -165,6 +165,13 @@ def test_planted_faults_are_found_where_planted(name, level):
     r = kk_test(sp)
     assert r.verdict == "inconsistent"
     assert any(g.from_ev <= hi and g.to_ev >= lo for g in r.regions), r.regions
+    # the component that was tampered with is flagged where it was tampered with; a bump in k
+    # (k small, n ~ 1.6) shows mainly in eps2 = 2nk, so there it is the most severe region
+    expected = {"k_bump": "eps2", "n_distortion": "eps1"}.get(name)
+    if expected:
+        assert any(g.component == expected and g.from_ev <= hi and g.to_ev >= lo for g in r.regions)
+    if name == "k_bump":
+        assert max(r.regions, key=lambda g: g.severity).component == "eps2"
 
 
 def test_flagged_spike_is_down_weighted():

@@ -43,7 +43,15 @@ from scipy.optimize import lsq_linear, nnls
 
 from .kernels import pl_kk_matrix
 
-__all__ = ["KKBasisModel", "NodeSet", "BasisFit", "choose_nodes", "fit_kk_basis", "design_matrices"]
+__all__ = [
+    "unsupported_nodes",
+    "KKBasisModel",
+    "NodeSet",
+    "BasisFit",
+    "choose_nodes",
+    "fit_kk_basis",
+    "design_matrices",
+]
 
 
 def _ro(a) -> np.ndarray:
@@ -220,6 +228,23 @@ def _hat_matrix(x: np.ndarray, w: np.ndarray) -> np.ndarray:
     t[rows, jj] = 1.0 - frac
     t[rows, jj + 1] += frac
     return t
+
+
+def unsupported_nodes(nodes_ev, kept_ev, all_ev) -> np.ndarray:
+    """Nodes inside the data window with no kept data point between their neighbour nodes.
+
+    Such nodes (e.g. after points were given zero weight) are constrained only through eps1;
+    :func:`fit_kk_basis` should treat them like gap nodes (``in_gap``).
+    """
+    nodes = np.asarray(nodes_ev, float)
+    kept = np.sort(np.asarray(kept_ev, float))
+    all_ev = np.asarray(all_ev, float)
+    prev = np.concatenate([[nodes[0]], nodes[:-1]])
+    nxt = np.concatenate([nodes[1:], [nodes[-1]]])
+    lo = np.searchsorted(kept, prev, side="left")
+    hi = np.searchsorted(kept, nxt, side="right")
+    inside = (nodes >= all_ev.min()) & (nodes <= all_ev.max())
+    return inside & (hi <= lo)
 
 
 def _solve_nonneg(a: np.ndarray, y: np.ndarray, free_first: bool) -> tuple[np.ndarray, str]:

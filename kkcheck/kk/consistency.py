@@ -21,7 +21,12 @@ Verdict rule (documented in :class:`KKTestOptions`; the same for every material)
    it exceeds ``z_threshold`` is a region (for pure Gaussian noise, a 5-point mean of z^2 above 9
    has probability ~1e-8 per point);
 3. ``"inconsistent"`` when any region exists or chi2/dof > ``chi2_threshold`` (3: allows the
-   noise estimate to be ~1.7x too small before crying wolf); else ``"consistent"``.
+   noise estimate to be ~1.7x too small before crying wolf); else ``"consistent"``;
+4. when regions were found, the model is refitted without the points of the most severe
+   ones (severity >= half the largest; skipped if they hold more than half of the points),
+   and the residuals, regions and model reported are those of the refit: a fault no longer
+   pulls the model towards itself, so it shows at its full size and the moderate residuals
+   it induced in its neighbours disappear.
 
 What no finite window can reveal: a constant offset of eps1 (absorbed by eps_inf), and
 smooth, nearly even distortions of eps1 (a + b w^2 + c / w^2) that absorption outside the
@@ -53,7 +58,7 @@ from scipy.ndimage import uniform_filter1d
 
 from ..errors import InputError
 from ..spectrum import Flag, Spectrum
-from .basisfit import KKBasisModel, choose_nodes, fit_kk_basis
+from .basisfit import KKBasisModel, choose_nodes, fit_kk_basis, unsupported_nodes
 from .noise import spectrum_noise
 
 __all__ = ["KKTestOptions", "Region", "KKTestResult", "kk_test", "find_regions"]
@@ -88,6 +93,14 @@ class KKTestOptions:
         Node placement (:func:`kkcheck.kk.basisfit.choose_nodes`).
     smoothing : float
         Curvature penalty weight (:func:`kkcheck.kk.basisfit.fit_kk_basis`), 0 = off.
+    refit_regions : bool
+        When regions are found, refit without their points and report the residuals, regions
+        and model of that refit (localises a fault instead of spreading it).
+    refit_severity_ratio : float
+        Only regions with severity >= this x the largest severity are left out of the refit
+        (the fault itself, not the moderate residuals it induced).
+    max_excluded_fraction : float
+        The refit is skipped when the regions hold more than this fraction of the points.
     rel_floor, abs_floor : float
         Noise floor (:func:`kkcheck.kk.noise.spectrum_noise`).
     """
@@ -105,6 +118,9 @@ class KKTestOptions:
     growth: float = 1.4
     thin_tol: float = 0.3
     smoothing: float = 0.0
+    refit_regions: bool = True
+    refit_severity_ratio: float = 0.5
+    max_excluded_fraction: float = 0.5
     rel_floor: float = 1e-4
     abs_floor: float = 1e-6
 
@@ -143,7 +159,8 @@ class KKTestResult:
     energy_ev : numpy.ndarray
         Photon energy of each data point [eV] (the spectrum's axis).
     eps1_model, eps2_model : numpy.ndarray
-        KK-consistent reconstruction at ``energy_ev``.
+        KK-consistent reconstruction at ``energy_ev`` (of the refit without the regions when
+        one was made, see the verdict rule).
     resid1, resid2 : numpy.ndarray
         Normalised residuals (data - model) / sigma of eps1 and eps2 [dimensionless], with the
         sigma actually used (inflated at SPIKE/STEP points).
@@ -156,7 +173,7 @@ class KKTestResult:
     max : float
         Largest |normalised residual| over the counted points.
     chi2_dof : float
-        chi2 / (counted residuals - free parameters).
+        chi2 / (counted residuals - free parameters) of the fit to all points.
     anchors_ev : tuple of float
         Energies whose eps1 was trusted more (nearest data point) [eV].
     regions : tuple of Region
@@ -222,7 +239,8 @@ def find_regions(
     if idx.size == 0:
         return []
     zz = np.asarray(z, float)[idx]
-    rms = np.sqrt(uniform_filter1d(zz * zz, size=max(1, options.run_width), mode="mirror"))
+    ms = uniform_filter1d(zz * zz, size=max(1, options.run_width), mode="mirror")
+    rms = np.sqrt(np.maximum(ms, 0.0))  # running sums can round to tiny negatives
     over = rms > options.z_threshold
     out = []
     k = 0
@@ -340,29 +358,63 @@ def kk_test(
     gam = e[0] * np.array([0.01, 0.03, 0.1, 0.3, 1.0]) if use_drude else np.zeros(0)
     if use_drude:
         notes.append("conductor: Drude columns with fixed damping included (DC pole of eps2)")
-    fit = fit_kk_basis(
-        e,
-        spectrum.eps,
-        u1,
-        u2,
-        nodeset.nodes_ev,
-        tied=nodeset.tied,
-        in_gap=nodeset.in_gap,
-        drude_gamma_ev=gam,
-        weights=wt,
-        smoothing=opt.smoothing,
-    )
-    model = fit.model
-    mod = model.eps(e)
+
+    def run_fit(w, in_gap):
+        return fit_kk_basis(
+            e,
+            spectrum.eps,
+            u1,
+            u2,
+            nodeset.nodes_ev,
+            tied=nodeset.tied,
+            in_gap=in_gap,
+            drude_gamma_ev=gam,
+            weights=w,
+            smoothing=opt.smoothing,
+        )
+
+    fit = run_fit(wt, nodeset.in_gap)
+    mod = fit.model.eps(e)
     z1 = (spectrum.eps.real - mod.real) / u1
     z2 = (spectrum.eps.imag - mod.imag) / u2
     counted = (~bad) & (wt > 0)
     zc = np.concatenate([z1[counted], z2[counted]])
-    n_res = zc.size
     chi2 = float(zc @ zc)
-    dof = max(1, n_res - fit.n_free)
+    dof = max(1, zc.size - fit.n_free)
     chi2_dof = chi2 / dof
     regions = find_regions(e, z1, counted, "eps1", opt) + find_regions(e, z2, counted, "eps2", opt)
+    model = fit.model
+    if regions and opt.refit_regions:
+        # second pass: the fit without the points in the regions (a fault pulls the fit
+        # towards itself and spreads residuals to its neighbours); residuals and regions are
+        # then measured against the model of the remaining, consistent data
+        inside = np.zeros(m, bool)
+        top = max(g.severity for g in regions)
+        for g in regions:
+            if g.severity >= opt.refit_severity_ratio * top:
+                inside |= (e >= g.from_ev) & (e <= g.to_ev)
+        w2 = np.where(inside, 0.0, wt)
+        if np.count_nonzero(w2) >= max(8, (1 - opt.max_excluded_fraction) * m):
+            gap2 = nodeset.in_gap | unsupported_nodes(nodeset.nodes_ev, e[w2 > 0], e)
+            fit2 = run_fit(w2, gap2)
+            mod2 = fit2.model.eps(e)
+            y1 = (spectrum.eps.real - mod2.real) / u1
+            y2 = (spectrum.eps.imag - mod2.imag) / u2
+            regions2 = find_regions(e, y1, counted, "eps1", opt) + find_regions(
+                e, y2, counted, "eps2", opt
+            )
+            if regions2:
+                regions, model, mod, z1, z2 = regions2, fit2.model, mod2, y1, y2
+                zc = np.concatenate([z1[counted], z2[counted]])
+                notes.append(
+                    "regions, residuals and model are from a refit without the points first "
+                    "found inconsistent; chi2/dof is of the fit to all points"
+                )
+        else:
+            notes.append(
+                "inconsistent over most of the window: no refit without the regions was made"
+            )
+    n_res = zc.size
     verdict = "inconsistent" if regions or chi2_dof > opt.chi2_threshold else "consistent"
     if chi2_dof > opt.chi2_threshold and not regions:
         notes.append(
