@@ -231,6 +231,15 @@ def _split_all(data: list[tuple[int, str]], delim: str, shown: str) -> list[list
         raise InputError(
             f"cannot split the row into cells ({exc})", shown, data[len(out)][0]
         ) from None
+    if len(out) != len(data):  # a quote left open joined lines into one field
+        for ln, body in data:
+            if body.count('"') % 2:
+                raise InputError(
+                    "unbalanced quote: expected quoted cells to close on the same line",
+                    shown,
+                    ln,
+                )
+        raise InputError("cannot split the rows into cells (quoted line breaks)", shown)
     return out
 
 
