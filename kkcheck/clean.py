@@ -43,6 +43,8 @@ from .spectrum import Flag, Spectrum
 from .units import eps_to_nk, nk_to_eps, sigma_nk_to_eps
 
 __all__ = [
+    "StepCorrection",
+    "level_steps",
     "NORMAL_MAD",
     "DOWNWEIGHT_FACTOR",
     "Outlier",
@@ -993,3 +995,120 @@ def clean(
         levels = ", ".join(f"{c} {noise.sigma(name, c):.3g}" for c in comps)
         notes.append(f"noise of {name}: {levels}")
     return CleanResult(out, outliers, noise, policy, tuple(notes))
+
+
+# --------------------------------------------------------------------------- step levelling
+
+
+@dataclass(frozen=True)
+class StepCorrection:
+    """One detector-changeover step and the level shift applied to remove it.
+
+    Attributes
+    ----------
+    energy_ev : float
+        First point after the jump [eV].
+    source : str
+        Source the step belongs to.
+    component : str
+        ``"eps1"``, ``"eps2"``, ``"n"`` or ``"k"``: the quantity that jumped.
+    jump : float
+        Size of the jump, value after minus trend before [component units].
+    relative : float
+        ``jump`` over the component's value at the step [dimensionless].
+    kept : str
+        ``"below"`` or ``"above"``: the side of the step (in energy) left as measured; the
+        other side of that source was shifted by the jump.
+    points : int
+        Number of points shifted.
+    reason : str
+        Why that side was kept.
+    """
+
+    energy_ev: float
+    source: str
+    component: str
+    jump: float
+    relative: float
+    kept: str
+    points: int
+    reason: str
+
+
+def level_steps(
+    spectrum: Spectrum, steps: Sequence[Outlier]
+) -> tuple[Spectrum, tuple[StepCorrection, ...]]:
+    """Remove detected steps by shifting one side of each source to meet the other.
+
+    Parameters
+    ----------
+    spectrum : Spectrum
+        The spectrum the steps were found in (merge output, flags set).
+    steps : sequence of Outlier
+        Outliers of kind ``"step"`` (from :func:`find_steps` or :func:`clean`).
+
+    Returns
+    -------
+    Spectrum
+        A copy with the shifted values; the STEP flag stays on the first point after each
+        jump, so the report still shows it.
+    tuple of StepCorrection
+        One record per step, with the shift applied.
+
+    Notes
+    -----
+    A changeover step is an instrument artefact: one side of the source is offset against
+    the other, and left in place it makes eps1 and eps2 KK inconsistent over a wide range
+    (the constrained model spreads the misfit), hiding any genuine fault. The side kept as
+    measured is the one holding more of the source's points in overlap with other sources
+    (Flag.OVERLAP: there the merge checked the source against the others); with no overlap
+    on either side, the side with more points. The other side is shifted additively by the
+    jump in the component that jumped (n or k for sources written as n,k, then eps is
+    recomputed). Shifts of several steps commute, since each moves a whole side.
+    Common practice for detector changeovers, no published source.
+    """
+    eps = np.array(spectrum.eps)
+    names = {n: i for i, n in enumerate(spectrum.source_names)}
+    records = []
+    for st in sorted((o for o in steps if o.kind == "step"), key=lambda o: o.energy_ev):
+        s = names[st.source]
+        idx = np.flatnonzero(spectrum.source == s)
+        pos = int(np.searchsorted(idx, st.index))
+        below, above = idx[:pos], idx[pos:]
+        ov = (spectrum.flags & int(Flag.OVERLAP)) != 0
+        nb, na = int(np.count_nonzero(ov[below])), int(np.count_nonzero(ov[above]))
+        if nb != na:
+            keep_below = nb > na
+            reason = "holds more points in overlap with other sources"
+        else:
+            keep_below = below.size >= above.size
+            reason = "holds more points (no overlap decides)"
+        shift, sign = (above, -1.0) if keep_below else (below, 1.0)
+        jump = st.value - st.expected
+        vals = eps[shift]
+        if st.component in ("eps1", "eps2"):
+            if st.component == "eps1":
+                vals = vals + sign * jump
+            else:
+                vals = vals + 1j * sign * jump
+        else:
+            n, k = eps_to_nk(vals)
+            if st.component == "n":
+                n = n + sign * jump
+            else:
+                k = k + sign * jump
+            vals = nk_to_eps(n, k)
+        eps[shift] = vals
+        records.append(
+            StepCorrection(
+                energy_ev=float(st.energy_ev),
+                source=st.source,
+                component=st.component,
+                jump=float(jump),
+                relative=float(jump / st.value) if st.value else float("nan"),
+                kept="below" if keep_below else "above",
+                points=int(shift.size),
+                reason=f"the {'lower' if keep_below else 'higher'}-energy side {reason}",
+            )
+        )
+    return spectrum.replace(eps=eps), tuple(records)

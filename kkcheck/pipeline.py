@@ -20,6 +20,7 @@ Config file (TOML) keys, all optional except ``inputs``::
 
     [clean]
     flagged = "replace"                # keep | downweight | replace
+    steps = "level"                    # level | keep (detector-changeover steps)
 
     [kk]
     anchors_ev = [1.5, 2.5]
@@ -101,6 +102,10 @@ class JobOptions:
         ``"keep"`` (flags only), ``"downweight"`` (flagged points get 10x their sigma in the
         KK test and the fit) or ``"replace"`` (default: down-weighted in the KK test, then
         replaced by the KK-consistent prediction before the fit; every change is recorded).
+    steps : str
+        ``"level"`` (default: shift one side of each detected changeover step to meet the
+        other before the KK test, see :func:`kkcheck.clean.level_steps`; every shift is
+        reported) or ``"keep"`` (flag only).
     anchors_ev : tuple of float
         Energies [eV] where eps1 is trusted.
     do_fit : bool
@@ -124,9 +129,10 @@ class JobOptions:
     convention: str = "auto"
     reference: str | None = None
     correct: bool = True
-    overlap: str = "blend"
+    overlap: str = "side_by_side"
     rank_sources: bool = True
     flagged: str = "replace"
+    steps: str = "level"
     anchors_ev: tuple[float, ...] = ()
     do_fit: bool = False
     pairs: int | None = None
@@ -153,6 +159,8 @@ class JobResult:
     ranking : tuple or None
         KK-based reference trials (best first), when run.
     clean : kkcheck.clean.CleanResult
+    steps : tuple of kkcheck.clean.StepCorrection
+        Level shifts applied before the KK test (empty with ``steps="keep"``).
     kk : kkcheck.kk.consistency.KKTestResult
     sum_rules : object
         :mod:`kkcheck.kk.sumrules` result.
@@ -177,6 +185,7 @@ class JobResult:
     merge: object
     ranking: object
     clean: object
+    steps: tuple
     kk: object
     sum_rules: object
     repair: object = None
@@ -221,6 +230,12 @@ class JobResult:
             lines.append(
                 "  flagged: "
                 + ", ".join(f"{v} {k}{'s' if v > 1 else ''}" for k, v in kinds.items())
+            )
+        for c in self.steps:
+            side = "above" if c.kept == "below" else "below"
+            lines.append(
+                f"  step in {c.source} at {c.energy_ev:.4g} eV: {c.component} jumps "
+                f"{c.jump:+.4g} ({c.relative:+.1%}); the side {side} it was shifted to match"
             )
         lines.append(
             f"KK test: {kk.verdict.upper()} (chi2/dof {kk.chi2_dof:.3g}, "
@@ -373,6 +388,12 @@ def analyse(
             ranking = rank_references(datasets, _kk_score(kk_opts))
         say("finding spikes, steps and noise")
         cleaned = clean_stage(merged.spectrum, policy="keep")
+        corrections = ()
+        if options.steps == "level":
+            from .clean import level_steps
+
+            leveled, corrections = level_steps(cleaned.spectrum, cleaned.outliers)
+            cleaned = dataclasses.replace(cleaned, spectrum=leveled)
         say("Kramers-Kronig test")
         kk = kk_test(cleaned.spectrum, anchors_ev=options.anchors_ev or None, options=kk_opts)
         say("sum rules")
@@ -404,6 +425,7 @@ def analyse(
         merge=merged,
         ranking=ranking,
         clean=cleaned,
+        steps=corrections,
         kk=kk,
         sum_rules=rules,
         repair=repaired,
@@ -522,6 +544,19 @@ def build_summary(result: JobResult) -> dict:
         }
         for o in result.clean.outliers
     ]
+    steps = [
+        {
+            "energy_ev": _f(c.energy_ev),
+            "source": c.source,
+            "component": c.component,
+            "jump": _f(c.jump),
+            "relative": _f(c.relative),
+            "kept_side": c.kept,
+            "points_shifted": c.points,
+            "reason": c.reason,
+        }
+        for c in result.steps
+    ]
     kk = result.kk
     spec = result.clean.spectrum
     kk_block = {
@@ -560,6 +595,7 @@ def build_summary(result: JobResult) -> dict:
         },
         "merge": merge_block,
         "outliers": outliers,
+        "step_corrections": steps,
         "kk": kk_block,
         "sum_rules": _plain_record(result.sum_rules),
         "parameters": result.options.as_dict(),
@@ -777,7 +813,7 @@ def load_config(path) -> tuple[list, Path | None, JobOptions]:
             "overlap": "overlap",
             "rank_sources": "rank_sources",
         },
-        "clean": {"flagged": "flagged"},
+        "clean": {"flagged": "flagged", "steps": "steps"},
         "kk": {"anchors_ev": "anchors_ev"},
         "fit": {
             "enabled": "do_fit",

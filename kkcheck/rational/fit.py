@@ -16,7 +16,13 @@ import numpy as np
 
 from ..errors import InputError
 from .model import PolePairModel
-from .order import OrderRow, choose_by_bic, fit_metrics, meets_target
+from .order import (
+    OrderRow,
+    choose_by_bic,
+    choose_by_diminishing_returns,
+    fit_metrics,
+    meets_target,
+)
 from .passivity import (
     EnforcementRecord,
     PassivityCertificate,
@@ -169,10 +175,11 @@ def fit_pole_pairs(
     (+ 2 c_0/s), s = -i w. Orders 1, 2, ... max_pairs are fitted by relaxed vector fitting
     (:func:`~kkcheck.rational.vfit.vector_fit`). The chosen order is the fewest entries that
     meet ``tol_rel`` or, with sigma and no tol_rel, chi2/dof <= 1 + 3 sqrt(2/dof) (noise
-    floor); without either, the smallest BIC (the search stops two orders after the last BIC
-    improvement). The chosen fit is certified
-    (:func:`~kkcheck.rational.passivity.certify_passivity`) and, when not passive,
-    enforced; if enforcement breaks the tolerance the next order is tried.
+    floor); when no order meets it, the fewest entries within 10 % of the best misfit
+    (:func:`~kkcheck.rational.order.choose_by_diminishing_returns`); without a target,
+    the smallest BIC (the search stops two orders after the last BIC improvement). The
+    chosen fit is certified (:func:`~kkcheck.rational.passivity.certify_passivity`) and,
+    when not passive, enforced; if enforcement breaks the tolerance the next order is tried.
     """
     w, e, sig = _validate(
         energy_ev, eps, sigma_eps1, sigma_eps2, n_pairs, tol_rel, conductor, max_pairs
@@ -211,9 +218,17 @@ def fit_pole_pairs(
         elif len(rows) - 1 - best_bic_at >= 2 or rms < 1e-12:
             break
     if chosen is None:
-        if n_pairs is None and (tol_rel is not None or have_sigma):
-            notes.append("no order up to max_pairs met the target; smallest BIC chosen")
-        chosen = choose_by_bic(rows) if n_pairs is None else 0
+        if n_pairs is not None:
+            chosen = 0
+        elif tol_rel is not None or have_sigma:
+            chosen = choose_by_diminishing_returns(rows)
+            notes.append(
+                "no order up to max_pairs met the target (the data hold structure a rational "
+                f"model does not take up); chose {rows[chosen].n_pairs} entries, the fewest "
+                "within 10 % of the best misfit"
+            )
+        else:
+            chosen = choose_by_bic(rows)
     entry = fits[chosen]
     if len(entry) == 3:
         model, cert, enf = entry

@@ -92,3 +92,18 @@ def meets_target(row: OrderRow, n_data: int, tol_rel: float | None) -> bool:
 def choose_by_bic(rows) -> int:
     """Index of the row with the smallest BIC (Schwarz 1978)."""
     return int(np.argmin([r.bic for r in rows]))
+
+
+def choose_by_diminishing_returns(rows, rel: float = 0.1) -> int:
+    """Index of the fewest-entry row whose misfit is within ``rel`` of the best row's.
+
+    Used when no order reaches the target: the data then hold structure that no rational
+    model of this size takes up (typically a KK fault or an instrument step), chi2 is
+    dominated by it, and BIC keeps adding pairs for fractions of a percent. The misfit is
+    chi2/dof when known, else rms_rel. Common practice (an "elbow" rule), no source.
+    """
+    score = [r.chi2_dof if r.chi2_dof is not None else r.rms_rel for r in rows]
+    best = min(score)
+    ok = [i for i, v in enumerate(score) if v <= (1.0 + rel) * best]
+    return min(ok, key=lambda i: (rows[i].n_pairs, score[i]))
+

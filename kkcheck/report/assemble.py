@@ -155,6 +155,15 @@ def report_context(result, figure_list, *, command: str = "") -> dict:
             "date_utc": s.get("created_utc"),
         },
     }
+    for c in s.get("step_corrections", []):
+        side = "higher" if c["kept_side"] == "below" else "lower"
+        ctx["cautions"].append(
+            f"Detector-changeover step in '{c['source']}' at {c['energy_ev']:.4g} eV: "
+            f"{c['component']} jumps {c['jump']:+.4g} ({100 * c['relative']:+.1f} %); "
+            f"{c['points_shifted']} points on the {side}-energy side were shifted to match "
+            f"({c['reason']}). The KK test, repair and fit use the shifted values; the "
+            "sources figure shows them as measured."
+        )
     suspect = s["merge"].get("suspect_source")
     if suspect:
         ctx["cautions"].append(
