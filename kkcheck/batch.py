@@ -334,8 +334,6 @@ def _run_dask(tasks, scheduler, bar: _Bar, client=None) -> list[dict]:
         ) from None
     own = client is None
     if own:
-        if not scheduler:
-            raise InputError("--engine dask needs --scheduler ADDRESS (e.g. tcp://host:8786)")
         try:
             client = Client(scheduler, timeout="20s")
         except OSError as exc:
@@ -464,6 +462,8 @@ def run_batch(
         raise ValueError("a Dask client was given but engine is not 'dask'")
     if scheduler and engine != "dask":
         raise InputError("--scheduler needs --engine dask")
+    if engine == "dask" and client is None and not scheduler:
+        raise InputError("--engine dask needs --scheduler ADDRESS (e.g. tcp://host:8786)")
     if jobs < 0:
         raise InputError(f"--jobs must be 0 (one per core) or a positive count, got {jobs}")
     folder = Path(folder)

@@ -11,12 +11,13 @@ import csv
 import io
 import json
 import sys
+import threading
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from kkcheck import pipeline
+from kkcheck import batch, pipeline
 from kkcheck.batch import INDEX_COLUMNS, find_items, run_batch
 from kkcheck.cli import main
 from kkcheck.errors import InputError
@@ -178,6 +179,23 @@ def test_internal_failure_of_one_item_does_not_stop_the_batch(tmp_path, monkeypa
     assert res.n_errors == 1
 
 
+def test_a_task_failing_outside_the_item_check_becomes_an_error_row(tmp_path):
+    # a task that cannot even reach its worker (here: an argument that cannot be pickled)
+    # fails its future, like a worker that dies; the other items must still come back
+    src = tmp_path / "in"
+    make_folder(src, 2)
+    good = [(str(p), str(tmp_path / p.stem), p.stem, False) for p in sorted(src.iterdir())]
+    broken = (good[0][0], str(tmp_path / "broken"), "broken", threading.Lock())
+    rows = batch._run_local([good[0], broken, good[1]], 2, batch._Bar(3, False))
+    by_name = {r["name"]: r for r in rows}
+    assert sorted(by_name) == sorted([good[0][2], "broken", good[1][2]])
+    assert by_name["broken"]["status"] == "error"
+    assert (
+        "worker failed" in by_name["broken"]["error"] and good[0][0] in by_name["broken"]["error"]
+    )
+    assert by_name[good[0][2]]["status"] == by_name[good[1][2]]["status"] == "ok"
+
+
 def test_bad_batch_arguments_exit_2_with_one_line(tmp_path, capsys):
     empty = tmp_path / "empty"
     empty.mkdir()
@@ -208,6 +226,29 @@ def test_names_are_unique_and_output_folder_may_be_the_input_folder(tmp_path):
     second = run_batch(src, src, jobs=1)
     assert [r["name"] for r in second.rows] == names
     assert second.n_errors == 0
+
+
+def test_fit_option_fills_model_columns(tmp_path, capsys):
+    src = tmp_path / "in"
+    src.mkdir()
+    write_case(src / "lor.csv", "lorentz", "eps", False, 11)
+    write_case(src / "film.csv", "tauc_lorentz", "nk", False, 12)
+    out = tmp_path / "out"
+    assert main(["batch", str(src), "--out", str(out), "--jobs", "1", "--fit", "-q"]) == 0
+    assert capsys.readouterr().out == ""  # --quiet
+    _, rows = read_index(out)
+    assert [r["name"] for r in rows] == ["film", "lor"]
+    for r in rows:
+        assert r["status"] == "ok" and r["verdict"] == "consistent", r
+        assert int(r["pairs"]) >= 1
+        # the data are passive closed forms with 1e-3 noise: a passive model within a few
+        # noise levels (common practice, no source)
+        assert r["passive"] == "True"
+        assert float(r["rms_rel"]) < 5e-3
+        model = json.loads((out / r["name"] / "model.json").read_text(encoding="utf-8"))
+        assert model["passivity"]["certified"] is True
+    page = (out / "index.html").read_text(encoding="utf-8")
+    assert 'href="lor/summary.json"' in page
 
 
 # ------------------------------------------------------------------------------ 200 datasets
@@ -374,6 +415,16 @@ def test_dask_engine_gives_the_local_verdicts(tmp_path, dask_client):
     _, rows = read_index(tmp_path / "dask")
     assert [r["verdict"] for r in rows] == [r["verdict"] for r in local.rows]
     assert dask_client.status == "running"  # a client passed in is not closed by the batch
+
+    # the command line with a scheduler address: its own client, same verdicts
+    addr = dask_client.scheduler.address
+    args = ["batch", str(src), "--out", str(tmp_path / "cli"), "--engine", "dask"]
+    assert main([*args, "--scheduler", addr, "-q"]) == 0
+    _, cli_rows = read_index(tmp_path / "cli")
+    assert [(r["name"], r["verdict"]) for r in cli_rows] == [
+        (r["name"], r["verdict"]) for r in local.rows
+    ]
+    assert dask_client.status == "running"
 
 
 def test_dask_engine_without_scheduler_or_package_is_an_input_error(tmp_path, monkeypatch):
