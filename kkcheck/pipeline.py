@@ -28,6 +28,7 @@ Config file (TOML) keys, all optional except ``inputs``::
     [fit]
     enabled = true
     pairs = 4                          # or: tol = 0.01 (rms relative error)
+    chi2_target = 1.5                  # noise floor for the automatic order choice
     frequency_unit = "eV"              # or "rad/s"
 
     [slab]
@@ -114,6 +115,10 @@ class JobOptions:
         Number of pole pairs (None: automatic order selection).
     tol : float or None
         Target rms relative error for the order selection.
+    chi2_target : float
+        Without ``tol``: the chi2/dof at which the fit counts as at the noise floor. The noise
+        is estimated from the data (to some 10-20 %), so 1.5 by default rather than the
+        purely statistical 1 + 3 sqrt(2/dof).
     frequency_unit : str
         ``"eV"`` or ``"rad/s"`` for model.json.
     thickness_nm : float
@@ -137,6 +142,7 @@ class JobOptions:
     do_fit: bool = False
     pairs: int | None = None
     tol: float | None = None
+    chi2_target: float = 1.5
     frequency_unit: str = "eV"
     thickness_nm: float = 100.0
     html: bool = False
@@ -258,8 +264,8 @@ class JobResult:
         if self.slab is not None:
             s = self.slab
             lines.append(
-                f"slab check ({s.thickness_nm:g} nm): max |dR| {s.max_dR:.2e}, "
-                f"max |dT| {s.max_dT:.2e}"
+                f"slab check ({s.thickness_nm:g} nm film): max |dR| {s.max_dR:.2e} at "
+                f"{s.at_dR_ev:.4g} eV, max |dT| {s.max_dT:.2e} at {s.at_dT_ev:.4g} eV"
             )
         for w in self.warnings:
             lines.append(f"  warning: {w}")
@@ -410,10 +416,17 @@ def analyse(
             repaired = repair(cleaned.spectrum, kk, policy=policy)
             say("fitting pole pairs")
             s1, s2 = repaired.sigma_eps1, repaired.sigma_eps2
-            if options.flagged == "downweight":
-                bad = (np.asarray(repaired.flags) & int(Flag.SPIKE | Flag.STEP)) != 0
-                s1 = np.where(bad, 10.0 * s1, s1)
-                s2 = np.where(bad, 10.0 * s2, s2)
+            # A pole-pair model is KK consistent by construction: it cannot follow data the
+            # KK test found inconsistent, and trying adds spurious narrow poles. Those points
+            # (and flagged ones still in the data) weigh 1/100 in the fit.
+            bits = int(Flag.SPIKE | Flag.STEP) if options.flagged != "keep" else 0
+            flags = np.asarray(repaired.flags)
+            bad = (flags & bits) != 0
+            for g in kk.regions:
+                bad |= (repaired.energy_ev >= g.from_ev) & (repaired.energy_ev <= g.to_ev)
+            bad &= (flags & int(Flag.REPLACED | Flag.FILLED)) == 0
+            s1 = np.where(bad, 10.0 * s1, s1)
+            s2 = np.where(bad, 10.0 * s2, s2)
             fitted = _fit(repaired, s1, s2, options, fit_pole_pairs)
             say("slab check")
             slab = _slab(repaired, fitted, options)
@@ -459,6 +472,7 @@ def _fit(repaired, s1, s2, options: JobOptions, fit_pole_pairs):
         s2[keep],
         n_pairs=options.pairs,
         tol_rel=options.tol,
+        chi2_target=options.chi2_target,
     )
 
 
@@ -616,6 +630,9 @@ def build_summary(result: JobResult) -> dict:
             "certified_passive": bool(f.passivity.certified),
             "stable": bool(f.stable),
             "range_ev": [_f(f.range_ev[0]), _f(f.range_ev[1])],
+            "weighting": "1/sigma of the repaired data; points in KK-inconsistent regions "
+            "and flagged points still in the data weigh 1/100",
+            "notes": list(f.warnings),
         }
     if result.slab is not None:
         s = result.slab
@@ -819,6 +836,7 @@ def load_config(path) -> tuple[list, Path | None, JobOptions]:
             "enabled": "do_fit",
             "pairs": "pairs",
             "tol": "tol",
+            "chi2_target": "chi2_target",
             "frequency_unit": "frequency_unit",
         },
         "slab": {"thickness_nm": "thickness_nm"},
@@ -867,7 +885,15 @@ def demo_inputs() -> list[str]:
             "python reference_data/make_demo.py)",
             path=missing[0],
         )
-    return [str(p) for p in paths]
+    return [_short_path(p) for p in paths]
+
+
+def _short_path(p: Path) -> str:
+    """``p`` relative to the working directory when it lies below it (shorter, portable)."""
+    try:
+        return str(p.resolve().relative_to(Path.cwd().resolve()))
+    except ValueError:
+        return str(p)
 
 
 def demo(out_dir=None, *, progress: bool = False) -> JobResult:

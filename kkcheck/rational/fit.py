@@ -142,6 +142,7 @@ def fit_pole_pairs(
     conductor="auto",
     max_pairs=12,
     enforce_passivity=True,
+    chi2_target=None,
 ) -> FitResult:
     """Fit a stable pole-pair model with few entries and a whole-axis passivity certificate.
 
@@ -160,6 +161,10 @@ def fit_pole_pairs(
         Accept the fewest entries whose rms relative error is <= tol_rel (after enforcement).
     conductor : {"auto", True, False}
         Include a conductor pole at s = 0; "auto" uses :func:`detect_conductor`.
+    chi2_target : float, optional
+        With sigma and no ``tol_rel``: the chi2/dof that counts as the noise floor. Default:
+        1 + 3 sqrt(2/dof), right when sigma is known; pass a larger value (e.g. 1.5) when
+        sigma was itself estimated from the data.
     max_pairs : int
         Largest number of starting entries tried.
     enforce_passivity : bool
@@ -208,7 +213,7 @@ def fit_pole_pairs(
         if bic < rows[best_bic_at].bic:
             best_bic_at = len(rows) - 1
         if tol_rel is not None or have_sigma:
-            if meets_target(row, w.size, tol_rel):
+            if meets_target(row, w.size, tol_rel, chi2_target):
                 model, enf, cert2 = _enforce(vf.model, cert, w, e, w1, w2, enforce_passivity)
                 if enf.rms_rel_after <= (tol_rel or np.inf) * 1.0 or not enf.needed:
                     chosen = len(rows) - 1

@@ -80,12 +80,18 @@ def noise_floor_chi2(n_data: int, n_params: int) -> float:
     return 1.0 + 3.0 * np.sqrt(2.0 / dof)
 
 
-def meets_target(row: OrderRow, n_data: int, tol_rel: float | None) -> bool:
-    """True when ``row`` meets rms_rel <= tol_rel or, without tol_rel, the noise floor."""
+def meets_target(
+    row: OrderRow, n_data: int, tol_rel: float | None, chi2_target: float | None = None
+) -> bool:
+    """True when ``row`` meets rms_rel <= tol_rel or, without tol_rel, the noise floor.
+
+    The noise floor is ``chi2_target`` when given, else :func:`noise_floor_chi2`.
+    """
     if tol_rel is not None:
         return row.rms_rel <= tol_rel
     if row.chi2_dof is not None:
-        return row.chi2_dof <= noise_floor_chi2(n_data, row.n_params)
+        floor = noise_floor_chi2(n_data, row.n_params)
+        return row.chi2_dof <= (floor if chi2_target is None else max(floor, chi2_target))
     return False
 
 
@@ -106,4 +112,3 @@ def choose_by_diminishing_returns(rows, rel: float = 0.1) -> int:
     best = min(score)
     ok = [i for i, v in enumerate(score) if v <= (1.0 + rel) * best]
     return min(ok, key=lambda i: (rows[i].n_pairs, score[i]))
-

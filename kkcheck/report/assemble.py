@@ -147,7 +147,8 @@ def report_context(result, figure_list, *, command: str = "") -> dict:
         "kk": {**s["kk"], "threshold": 3.0},
         "sum_rules": _sum_rule_rows(result.sum_rules),
         "figures": [{**f, "path": str(f["path"])} for f in figure_list],
-        "cautions": list(s["kk"].get("notes", [])) + list(s.get("warnings", [])),
+        "cautions": [n for n in s["kk"].get("notes", []) if not n.startswith("a constant offset")]
+        + [w.split(": ", 1)[-1] for w in s.get("warnings", [])],
         "provenance": {
             "command": command or " ".join(sys.argv),
             "versions": library_versions(),
@@ -184,6 +185,11 @@ def report_context(result, figure_list, *, command: str = "") -> dict:
             {"kind": t.kind, **t.as_dict()} for t in physical_terms(result.fit.model)
         ]
         ctx["model"] = model
+    if result.fit is not None and result.kk.regions:
+        ctx["cautions"].append(
+            "The model was fitted with the KK-inconsistent regions weighing 1/100: a pole-pair "
+            "model is KK consistent by construction and cannot follow them there."
+        )
     if "slab" in s:
         ctx["slab"] = s["slab"]
     return ctx

@@ -219,15 +219,14 @@ def _key_numbers(ctx: Mapping) -> list[tuple[str, str]]:
     """(label, formatted value) pairs for the verdict box, most important first."""
     out: list[tuple[str, str]] = []
     kk = ctx.get("kk") or {}
+    # kk rms and max are normalised residuals (units of sigma); noise is in eps units
     rms, noise = _num(kk.get("rms")), _num(kk.get("noise"))
     if rms is not None:
-        out.append(("KK residual, rms", _fmt(rms, 3)))
+        out.append(("KK residual, rms [σ]", _fmt(rms, 3)))
     if _num(kk.get("max")) is not None:
-        out.append(("KK residual, max", _fmt(kk["max"], 3)))
+        out.append(("KK residual, max [σ]", _fmt(kk["max"], 3)))
     if noise is not None:
-        out.append(("noise level", _fmt(noise, 3)))
-    if rms is not None and noise:
-        out.append(("rms / noise", _fmt(rms / noise, 3)))
+        out.append(("noise, median σ(ε₁)", _fmt(noise, 3)))
     if _num(kk.get("chi2_dof")) is not None:
         out.append(("χ²/dof", _fmt(kk["chi2_dof"], 3)))
     if "regions" in kk:
@@ -245,9 +244,9 @@ def _key_numbers(ctx: Mapping) -> list[tuple[str, str]]:
         out.append(("model pole pairs", str(len(model.get("pairs") or ()))))
         metrics = model.get("metrics") or {}
         if _num(metrics.get("rms_rel")) is not None:
-            out.append(("model error, rms (rel.)", _fmt(metrics["rms_rel"], 3)))
+            out.append(("model error, rms", f"{100 * float(metrics['rms_rel']):.3g} %"))
         if _num(metrics.get("max_rel")) is not None:
-            out.append(("model error, max (rel.)", _fmt(metrics["max_rel"], 3)))
+            out.append(("model error, max", f"{100 * float(metrics['max_rel']):.3g} %"))
         pas = model.get("passivity") or {}
         if "certified" in pas:
             out.append(("passivity certified", _fmt(bool(pas["certified"]))))
