@@ -1,0 +1,132 @@
+"""The whole job: demo artefacts, TOML configs, the Python API of the README."""
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import kkcheck
+from kkcheck.cli import main
+from kkcheck.materials import lorentz, tauc_lorentz
+from kkcheck.units import HC_EV_NM, eps_to_nk
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def _film(path: Path, lam_lo: float, lam_hi: float, step: float, seed: int, scale=1.0):
+    """Tauc-Lorentz film (Jellison & Modine 1996 form, invented parameters), n,k with noise."""
+    rng = np.random.default_rng(seed)
+    lam = np.arange(lam_lo, lam_hi + 1e-9, step)
+    eps = (1.8 + tauc_lorentz(HC_EV_NM / lam, 85.0, 4.2, 2.0, 2.4)) * scale
+    n, k = eps_to_nk(eps)
+    n = n + rng.normal(0, 1e-3, lam.size)
+    k = np.abs(k + rng.normal(0, 1e-3, lam.size))
+    rows = [f"{a:.2f},{b:.5f},{c:.5f}" for a, b, c in zip(lam, n, k)]
+    path.write_text("wavelength_nm,n,k\n" + "\n".join(rows) + "\n")
+    return path
+
+
+@pytest.mark.slow
+def test_demo_produces_every_artefact(tmp_path):
+    res = kkcheck.demo(out_dir=tmp_path / "demo")
+    out = tmp_path / "demo"
+    for name in (
+        "summary.json",
+        "model.json",
+        "cleaned.csv",
+        "repaired.csv",
+        "repaired_wavelength_nm.csv",
+        "model_parameters.txt",
+        "report.html",
+        "summary.md",
+    ):
+        assert (out / name).stat().st_size > 0, name
+    for stem in ("sources", "kk_reconstruction", "kk_residuals", "repaired", "fit", "passivity",
+                 "slab"):
+        assert (out / "figures" / f"{stem}.png").stat().st_size > 10_000
+        assert (out / "figures" / f"{stem}.pdf").read_bytes()[:5] == b"%PDF-"
+    assert set(res.files) >= {out / "summary.json", out / "report.html"}
+    # the planted defects of reference_data/README.md are found
+    s = json.loads((out / "summary.json").read_text())
+    (step,) = s["step_corrections"]
+    assert step["source"] == "nir_ellipsometry"
+    assert HC_EV_NM / step["energy_ev"] == pytest.approx(1600.0, abs=10.0)  # planted at 1.60 um
+    assert step["relative"] == pytest.approx(-0.025, abs=0.006)  # eps1 x 1.025 below 0.775 eV
+    assert s["kk"]["verdict"] == "inconsistent"
+    # every region lies on the planted n bump centred at 480 nm (2.58 eV, width ~18 nm)
+    for r in s["kk"]["regions"]:
+        assert 2.3 < r["from_ev"] and r["to_ev"] < 2.9, r
+    m = json.loads((out / "model.json").read_text())
+    assert m["passivity"]["certified"] and m["stable"]
+    html = (out / "report.html").read_text()
+    assert html.index("INCONSISTENT") < html.index("<table")
+    md = (out / "summary.md").read_text()
+    assert "inconsistent" in md.lower() and "fitted range" in md.lower()
+
+
+def test_run_config_merges_two_files(tmp_path):
+    _film(tmp_path / "uv.csv", 300.0, 800.0, 4.0, seed=1)
+    _film(tmp_path / "vis.csv", 700.0, 1200.0, 5.0, seed=2, scale=1.03)
+    cfg = tmp_path / "job.toml"
+    cfg.write_text(
+        'title = "two instruments"\nout = "results"\n'
+        'inputs = ["uv.csv", {path = "vis.csv", name = "VIS"}]\n'
+        "[merge]\nreference = \"uv\"\n[fit]\npairs = 3\n[report]\nhtml = false\n"
+    )
+    assert main(["run", str(cfg), "--quiet"]) == 0
+    s = json.loads((tmp_path / "results" / "summary.json").read_text())
+    src = {x["name"]: x for x in s["merge"]["sources"]}
+    assert src["uv"]["reference"] is True
+    assert src["VIS"]["scale"] == pytest.approx(1.03, abs=0.01)  # planted 3 % scale
+    assert s["kk"]["verdict"] == "consistent"
+    m = json.loads((tmp_path / "results" / "model.json").read_text())
+    assert len(m["pairs"]) == 3
+    assert not (tmp_path / "results" / "report.html").exists()
+
+
+@pytest.mark.parametrize(
+    "text, expected",
+    [
+        ('inputs = ["a.csv"]\ncolour = 3\n', "unknown key"),
+        ("inputs = [\n", "TOML"),
+        ('title = "x"\n', "inputs"),
+        ('inputs = ["a.csv"]\n[fit]\npairz = 3\n', "pairz"),
+    ],
+)
+def test_bad_config_is_one_line(tmp_path, capsys, text, expected):
+    cfg = tmp_path / "job.toml"
+    cfg.write_text(text)
+    assert main(["run", str(cfg)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "job.toml" in err and expected in err
+
+
+def test_python_api_as_in_readme(tmp_path):
+    a = _film(tmp_path / "uvvis.csv", 300.0, 800.0, 4.0, seed=3)
+    b = _film(tmp_path / "nir.csv", 750.0, 1500.0, 6.0, seed=4)
+    result = kkcheck.check([str(a), str(b)], out_dir=tmp_path / "results")
+    assert result.kk.verdict == "consistent"
+    assert [r.from_ev for r in result.kk.regions] == []
+    fitted = kkcheck.fit([str(a), str(b)], out_dir=tmp_path / "results", pairs=4)
+    eps = fitted.fit.model.eps([1.0, 2.0, 3.0])
+    truth = 1.8 + tauc_lorentz(np.array([1.0, 2.0, 3.0]), 85.0, 4.2, 2.0, 2.4)
+    np.testing.assert_allclose(eps, truth, rtol=0.02)
+
+
+def test_lorentz_oscillator_fit_recovers_its_parameters(tmp_path):
+    # closed-form Lorentz oscillator (common practice) sampled as eps; the pipeline's fit
+    # must find one pair with w0 and gamma of the oscillator
+    e = np.linspace(0.5, 4.0, 300)
+    rng = np.random.default_rng(11)
+    eps = 2.0 + lorentz(e, 3.0, 2.0, 0.2) + rng.normal(0, 1e-3, e.size) * (1 + 1j)
+    p = tmp_path / "osc.txt"
+    p.write_text(
+        "energy (eV)\teps1\teps2\n"
+        + "\n".join(f"{a:.6f}\t{z.real:.6f}\t{z.imag:.6f}" for a, z in zip(e, eps))
+        + "\n"
+    )
+    res = kkcheck.fit([str(p)], out_dir=tmp_path / "o")
+    (term,) = [t for t in res.model["terms"] if t.get("kind") in ("lorentz", "modified_lorentz")]
+    assert term["w0_ev"] == pytest.approx(2.0, rel=5e-3)
+    assert term["gamma_ev"] == pytest.approx(0.2, rel=2e-2)
