@@ -213,7 +213,7 @@ def vet_item(path: str, out_dir: str, name: str, fit: bool = False) -> dict:
                 inputs, _, opts = pipeline.load_config(p)
                 if not fit:
                     opts = pipeline.JobOptions(**{**opts.as_dict(), "do_fit": False, "html": False})
-                res = pipeline._job(inputs, out_dir, opts, False, f"kkcheck batch ({p.name})")
+                res = pipeline.run_job(inputs, out_dir, opts, False, f"kkcheck batch ({p.name})")
             elif fit:
                 res = pipeline.fit([str(p)], out_dir=out_dir)
             else:

@@ -67,6 +67,7 @@ __all__ = [
     "run",
     "demo",
     "load_config",
+    "run_job",
 ]
 
 SUMMARY_SCHEMA = "kkcheck.summary/1"
@@ -751,7 +752,15 @@ def _options(**kw) -> JobOptions:
     return JobOptions(**kw)
 
 
-def _job(inputs, out_dir, options: JobOptions, progress: bool, command: str) -> JobResult:
+def run_job(
+    inputs, out_dir, options: JobOptions, progress: bool = False, command: str = ""
+) -> JobResult:
+    """Read ``inputs``, run every stage ``options`` asks for, write to ``out_dir`` if given.
+
+    The common core of :func:`check`, :func:`fit`, :func:`run` and :func:`demo` (and of a
+    batch item); ``inputs`` are paths or ``{"path", "axis", "quantity", "name",
+    "convention"}`` dicts.
+    """
     bar = _Progress(progress)
     bar("reading")
     specs = _as_specs(inputs, options)
@@ -771,7 +780,7 @@ def check(inputs, out_dir=None, *, progress: bool = False, **options) -> JobResu
     ``options`` are :class:`JobOptions` fields (e.g. ``reference="uv"``, ``anchors_ev=[2.0]``).
     """
     opts = _options(**options)
-    return _job(inputs, out_dir, opts, progress, "kkcheck check")
+    return run_job(inputs, out_dir, opts, progress, "kkcheck check")
 
 
 def fit(
@@ -779,7 +788,7 @@ def fit(
 ) -> JobResult:
     """Everything :func:`check` does, then repair, pole-pair fit and slab check."""
     opts = _options(**{**options, "do_fit": True, "html": report or options.get("html", False)})
-    return _job(inputs, out_dir, opts, progress, "kkcheck fit")
+    return run_job(inputs, out_dir, opts, progress, "kkcheck fit")
 
 
 def load_config(path) -> tuple[list, Path | None, JobOptions]:
@@ -870,7 +879,7 @@ def run(config, out_dir=None, *, progress: bool = False) -> JobResult:
     out = out_dir if out_dir is not None else cfg_out
     if out is None:
         out = Path(config).with_suffix("").name + "_results"
-    return _job(inputs, out, opts, progress, f"kkcheck run {config}")
+    return run_job(inputs, out, opts, progress, f"kkcheck run {config}")
 
 
 def demo_inputs() -> list[str]:
@@ -900,4 +909,4 @@ def demo(out_dir=None, *, progress: bool = False) -> JobResult:
     """The whole job on the bundled demo data; writes to reports/demo by default."""
     out = Path(out_dir) if out_dir is not None else Path("reports") / "demo"
     opts = JobOptions(do_fit=True, html=True, title="ZX-7 film (invented demo data)")
-    return _job(demo_inputs(), out, opts, progress, "kkcheck demo")
+    return run_job(demo_inputs(), out, opts, progress, "kkcheck demo")
