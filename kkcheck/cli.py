@@ -59,9 +59,10 @@ def _add_input_options(p: argparse.ArgumentParser) -> None:
     )
     g.add_argument(
         "--overlap",
-        choices=("blend", "side_by_side"),
-        default="blend",
-        help="how overlapping sources are combined (default: inverse-variance blend)",
+        choices=("side_by_side", "blend"),
+        default="side_by_side",
+        help="overlapping sources: side_by_side (default: every point kept with its source "
+        "label) or blend (inverse-variance average onto one grid)",
     )
     g.add_argument(
         "--flagged",
@@ -84,7 +85,8 @@ def _add_input_options(p: argparse.ArgumentParser) -> None:
         type=float,
         action="append",
         metavar="EV",
-        help="energy [eV] where eps1 is trusted, for the subtractive check (repeatable)",
+        help="energy [eV] where eps1 is trusted most: its sigma is cut 10x in the KK test "
+        "(repeatable)",
     )
     p.add_argument("--quiet", "-q", action="store_true", help="print nothing but errors")
     p.add_argument("--debug", action="store_true", help="show tracebacks")
@@ -103,6 +105,7 @@ def _add_fit_options(p: argparse.ArgumentParser) -> None:
     g.add_argument(
         "--thickness-nm",
         type=float,
+        metavar="NM",
         default=100.0,
         help="film thickness [nm] for the slab check of the fit (default: 100)",
     )
