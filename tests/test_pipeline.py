@@ -42,8 +42,15 @@ def test_demo_produces_every_artefact(tmp_path):
         "summary.md",
     ):
         assert (out / name).stat().st_size > 0, name
-    for stem in ("sources", "kk_reconstruction", "kk_residuals", "repaired", "fit", "passivity",
-                 "slab"):
+    for stem in (
+        "sources",
+        "kk_reconstruction",
+        "kk_residuals",
+        "repaired",
+        "fit",
+        "passivity",
+        "slab",
+    ):
         assert (out / "figures" / f"{stem}.png").stat().st_size > 10_000
         assert (out / "figures" / f"{stem}.pdf").read_bytes()[:5] == b"%PDF-"
     assert set(res.files) >= {out / "summary.json", out / "report.html"}
@@ -72,7 +79,7 @@ def test_run_config_merges_two_files(tmp_path):
     cfg.write_text(
         'title = "two instruments"\nout = "results"\n'
         'inputs = ["uv.csv", {path = "vis.csv", name = "VIS"}]\n'
-        "[merge]\nreference = \"uv\"\n[fit]\npairs = 3\n[report]\nhtml = false\n"
+        '[merge]\nreference = "uv"\n[fit]\npairs = 3\n[report]\nhtml = false\n'
     )
     assert main(["run", str(cfg), "--quiet"]) == 0
     s = json.loads((tmp_path / "results" / "summary.json").read_text())
