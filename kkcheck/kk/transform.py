@@ -147,8 +147,8 @@ def eps2_to_eps1(energy_ev, eps2, at_ev=None, *, method="auto", dc_sigma_ev=0.0)
         (:func:`kkcheck.kk.fastkk.pl_kink_sum_fast`; measured agreement with the dense
         form 1e-13 to 2e-12 of max|result|, tested to 1e-9), or fast for
         N >= FAST_MIN_POINTS (5000) points with >= 200 targets inside the window. Targets
-        outside the window always use the dense form; the fast path warns and falls back when the window spans too many
-        decades for its uniform grid.
+        outside the window always use the dense form; the fast path warns and falls back
+        when the window spans too many decades for its uniform grid.
     dc_sigma_ev : float
         sigma0/eps0 expressed in eV (wp^2/gamma for a Drude term) [eV]. When non-zero, eps2
         below the window is extrapolated as the DC term dc_sigma_ev/E (exact contribution
