@@ -24,6 +24,7 @@ Config file (TOML) keys, all optional except ``inputs``::
 
     [kk]
     anchors_ev = [1.5, 2.5]
+    max_points = 3000                  # bin smooth stretches of larger spectra first
 
     [fit]
     enabled = true
@@ -110,6 +111,9 @@ class JobOptions:
         reported) or ``"keep"`` (flag only).
     anchors_ev : tuple of float
         Energies [eV] where eps1 is trusted.
+    max_points : int
+        Above this many points, smooth stretches are binned before the KK test
+        (:func:`kkcheck.clean.bin_spectrum`); sharp features, spikes and steps stay unbinned.
     do_fit : bool
         Run repair, pole-pair fit and slab check.
     pairs : int or None
@@ -140,6 +144,7 @@ class JobOptions:
     flagged: str = "replace"
     steps: str = "level"
     anchors_ev: tuple[float, ...] = ()
+    max_points: int = 3000
     do_fit: bool = False
     pairs: int | None = None
     tol: float | None = None
@@ -168,6 +173,10 @@ class JobResult:
     clean : kkcheck.clean.CleanResult
     steps : tuple of kkcheck.clean.StepCorrection
         Level shifts applied before the KK test (empty with ``steps="keep"``).
+    analysed : kkcheck.spectrum.Spectrum
+        The spectrum the KK test, repair and fit ran on: the cleaned (and levelled) one, with
+        smooth stretches binned when it had more than ``options.max_points`` points.
+    binning : kkcheck.clean.BinRecord
     kk : kkcheck.kk.consistency.KKTestResult
     sum_rules : object
         :mod:`kkcheck.kk.sumrules` result.
@@ -193,6 +202,8 @@ class JobResult:
     ranking: object
     clean: object
     steps: tuple
+    analysed: object
+    binning: object
     kk: object
     sum_rules: object
     repair: object = None
@@ -243,6 +254,12 @@ class JobResult:
             lines.append(
                 f"  step in {c.source} at {c.energy_ev:.4g} eV: {c.component} jumps "
                 f"{c.jump:+.4g} ({c.relative:+.1%}); the side {side} it was shifted to match"
+            )
+        b = self.binning
+        if b is not None and b.points_out != b.points_in:
+            lines.append(
+                f"  binned {b.points_in} points to {b.points_out} for the KK test "
+                "(sharp features, spikes and steps kept as measured)"
             )
         lines.append(
             f"KK test: {kk.verdict.upper()} (chi2/dof {kk.chi2_dof:.3g}, "
@@ -401,10 +418,13 @@ def analyse(
 
             leveled, corrections = level_steps(cleaned.spectrum, cleaned.outliers)
             cleaned = dataclasses.replace(cleaned, spectrum=leveled)
+        from .clean import bin_spectrum
+
+        analysed, binning = bin_spectrum(cleaned.spectrum, options.max_points)
         say("Kramers-Kronig test")
-        kk = kk_test(cleaned.spectrum, anchors_ev=options.anchors_ev or None, options=kk_opts)
+        kk = kk_test(analysed, anchors_ev=options.anchors_ev or None, options=kk_opts)
         say("sum rules")
-        sp = cleaned.spectrum
+        sp = analysed
         e_u, first = np.unique(sp.energy_ev, return_index=True)
         rules = sum_rule_stage(e_u, sp.eps.real[first], sp.eps.imag[first])
         repaired = fitted = slab = None
@@ -414,7 +434,7 @@ def analyse(
 
             say("repairing")
             policy = "replace_flagged" if options.flagged == "replace" else "none"
-            repaired = repair(cleaned.spectrum, kk, policy=policy)
+            repaired = repair(analysed, kk, policy=policy)
             say("fitting pole pairs")
             s1, s2 = repaired.sigma_eps1, repaired.sigma_eps2
             # A pole-pair model is KK consistent by construction: it cannot follow data the
@@ -440,6 +460,8 @@ def analyse(
         ranking=ranking,
         clean=cleaned,
         steps=corrections,
+        analysed=analysed,
+        binning=binning,
         kk=kk,
         sum_rules=rules,
         repair=repaired,
@@ -573,7 +595,7 @@ def build_summary(result: JobResult) -> dict:
         for c in result.steps
     ]
     kk = result.kk
-    spec = result.clean.spectrum
+    spec = result.analysed
     kk_block = {
         "method": kk.method,
         "anchors_ev": [float(a) for a in kk.anchors_ev],
@@ -594,7 +616,16 @@ def build_summary(result: JobResult) -> dict:
             for r in kk.regions
         ],
         "notes": list(kk.notes),
+        "points_analysed": len(spec),
     }
+    b = result.binning
+    if b.points_out != b.points_in:
+        kk_block["notes"].append(
+            f"{b.points_in} points were binned to {b.points_out} for the test (up to "
+            f"{b.bin_size} neighbours averaged where the data are straight within the noise; "
+            f"{b.kept_sharp} points at sharp features and {b.kept_flagged} flagged points "
+            "kept as measured)"
+        )
     summary = {
         "schema": SUMMARY_SCHEMA,
         "version": __version__,
@@ -840,7 +871,7 @@ def load_config(path) -> tuple[list, Path | None, JobOptions]:
             "rank_sources": "rank_sources",
         },
         "clean": {"flagged": "flagged", "steps": "steps"},
-        "kk": {"anchors_ev": "anchors_ev"},
+        "kk": {"anchors_ev": "anchors_ev", "max_points": "max_points"},
         "fit": {
             "enabled": "do_fit",
             "pairs": "pairs",

@@ -231,8 +231,9 @@ def find_regions(
     -----
     rms_i = sqrt(mean_{|j-i| <= W/2} z_j^2) over counted points (mirrored at the ends, so an
     end point is not counted twice); a region is a maximal run of >= ``min_points``
-    consecutive counted points with rms_i > ``z_threshold``; its severity is max |z_j| over
-    the run.
+    consecutive counted points with rms_i > ``z_threshold``, after joining neighbouring runs
+    separated by at most max(``run_width``, a quarter of their combined length) points; its
+    severity is max |z_j| over the run.
     """
     e = np.asarray(energy_ev, float)
     idx = np.nonzero(np.asarray(counted, bool))[0]
@@ -242,6 +243,16 @@ def find_regions(
     ms = uniform_filter1d(zz * zz, size=max(1, options.run_width), mode="mirror")
     rms = np.sqrt(np.maximum(ms, 0.0))  # running sums can round to tiny negatives
     over = rms > options.z_threshold
+    # close short gaps: two runs separated by at most max(run_width, a quarter of their
+    # combined length) points are one fault whose residual crosses zero inside it (or has a
+    # flagged point in it)
+    d = np.diff(np.r_[0, over.astype(int), 0])
+    starts, ends = np.flatnonzero(d == 1), np.flatnonzero(d == -1)  # runs [start, end)
+    for r in range(len(starts) - 1):
+        gap = starts[r + 1] - ends[r]
+        joined = (ends[r] - starts[r]) + (ends[r + 1] - starts[r + 1])
+        if gap <= max(options.run_width, joined // 4):
+            over[ends[r] : starts[r + 1]] = True
     out = []
     k = 0
     n = over.size

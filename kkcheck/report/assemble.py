@@ -41,7 +41,7 @@ def _figures(result, fig_dir: Path) -> list[dict]:
             "correction; flagged spikes (x) and steps (dashed) marked, gaps hatched.",
         }
     )
-    spec = result.clean.spectrum
+    spec = result.analysed
     kk = result.kk
     regions = summary["kk"]["regions"]
     out.append(
