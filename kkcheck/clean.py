@@ -951,7 +951,8 @@ def clean(
     -----
     Order: noise (:func:`estimate_noise`), spikes (:func:`find_spikes`), steps
     (:func:`find_steps`, with the spikes left out of its fits), NaN sigmas filled from the
-    noise estimate (:func:`noise_per_point`), then :func:`apply_policy`. No point is removed.
+    local noise estimate (:func:`kkcheck.kk.noise.spectrum_noise`), then
+    :func:`apply_policy`. No point is removed.
 
     References
     ----------
@@ -968,7 +969,13 @@ def clean(
     steps = find_steps(spectrum, threshold=step_threshold, ignore=spikes)
     outliers = tuple(sorted(spikes + steps, key=lambda o: (o.energy_ev, o.kind, o.component)))
     notes.append(f"{len(spikes)} spike(s) and {len(steps)} step(s) flagged; no point removed")
-    s1, s2 = noise_per_point(spectrum, noise)
+    # per-point sigma for the later stages: the local estimate of the KK test (cubic through
+    # four neighbours, running median), which curvature biases far less than the chord
+    # residuals that rank noise per region above
+    from .kk.noise import spectrum_noise
+
+    local = spectrum_noise(spectrum)
+    s1, s2 = local.sigma_eps1, local.sigma_eps2
     nan1 = np.isnan(spectrum.sigma_eps1)
     nan2 = np.isnan(spectrum.sigma_eps2)
     if nan1.any() or nan2.any():
