@@ -1031,7 +1031,10 @@ class StepCorrection:
     points : int
         Number of points shifted.
     reason : str
-        Why that side was kept.
+        Why that side was kept (and, when not applied, why not).
+    applied : bool
+        False when the caller decided to leave the step as measured (the pipeline does so
+        when levelling it does not make the data more KK consistent).
     """
 
     energy_ev: float
@@ -1042,6 +1045,7 @@ class StepCorrection:
     kept: str
     points: int
     reason: str
+    applied: bool = True
 
 
 def level_steps(

@@ -251,9 +251,10 @@ class JobResult:
             )
         for c in self.steps:
             side = "above" if c.kept == "below" else "below"
+            what = f"the side {side} it was shifted to match" if c.applied else c.reason
             lines.append(
                 f"  step in {c.source} at {c.energy_ev:.4g} eV: {c.component} jumps "
-                f"{c.jump:+.4g} ({c.relative:+.1%}); the side {side} it was shifted to match"
+                f"{c.jump:+.4g} ({c.relative:+.1%}); {what}"
             )
         b = self.binning
         if b is not None and b.points_out != b.points_in:
@@ -412,17 +413,18 @@ def analyse(
             ranking = rank_references(datasets, _kk_score(kk_opts))
         say("finding spikes, steps and noise")
         cleaned = clean_stage(merged.spectrum, policy="keep")
-        corrections = ()
-        if options.steps == "level":
-            from .clean import level_steps
-
-            leveled, corrections = level_steps(cleaned.spectrum, cleaned.outliers)
-            cleaned = dataclasses.replace(cleaned, spectrum=leveled)
         from .clean import bin_spectrum
 
+        corrections: tuple = ()
+        kk = None
+        steps = [o for o in cleaned.outliers if o.kind == "step"]
+        if options.steps == "level" and steps:
+            say("levelling steps")
+            cleaned, corrections, kk = _level_steps_if_consistent(cleaned, steps, options, kk_opts)
         analysed, binning = bin_spectrum(cleaned.spectrum, options.max_points)
-        say("Kramers-Kronig test")
-        kk = kk_test(analysed, anchors_ev=options.anchors_ev or None, options=kk_opts)
+        if kk is None:
+            say("Kramers-Kronig test")
+            kk = kk_test(analysed, anchors_ev=options.anchors_ev or None, options=kk_opts)
         say("sum rules")
         sp = analysed
         e_u, first = np.unique(sp.energy_ev, return_index=True)
@@ -476,6 +478,50 @@ def analyse(
 
         model = model_to_dict(fitted, frequency_unit=options.frequency_unit)
     return dataclasses.replace(result, summary=build_summary(result), model=model)
+
+
+def _level_steps_if_consistent(cleaned, steps, options: JobOptions, kk_opts):
+    """Level each detected step only if that makes the data more KK consistent.
+
+    A step found by :func:`kkcheck.clean.find_steps` is an instrument artefact when one side
+    of the source is offset; but on sparse data a sharp feature can look like a jump, and
+    shifting half a source then creates the inconsistency it meant to remove. So each step
+    (largest first, at most five) is levelled on trial and kept only when chi2/dof of the KK
+    test drops. Returns (clean result, corrections incl. rejected ones, KK result of the
+    accepted spectrum).
+    """
+    from .clean import bin_spectrum, level_steps
+    from .kk.consistency import kk_test
+
+    def test(spectrum):
+        binned, _ = bin_spectrum(spectrum, options.max_points)
+        return kk_test(binned, anchors_ev=options.anchors_ev or None, options=kk_opts)
+
+    current = cleaned.spectrum
+    kk = test(current)
+    records = []
+    order = sorted(steps, key=lambda o: -abs(o.value - o.expected) / max(abs(o.value), 1e-300))
+    for i, st in enumerate(order):
+        trial, (rec,) = level_steps(current, [st])
+        if i >= 5:
+            records.append(dataclasses.replace(rec, applied=False, reason="not tried (> 5 steps)"))
+            continue
+        kk_trial = test(trial)
+        if kk_trial.chi2_dof < kk.chi2_dof:
+            current, kk = trial, kk_trial
+            records.append(rec)
+        else:
+            records.append(
+                dataclasses.replace(
+                    rec,
+                    applied=False,
+                    reason=f"left as measured: levelling it did not lower the KK chi2/dof "
+                    f"({kk_trial.chi2_dof:.3g} vs {kk.chi2_dof:.3g}), so it may be a real "
+                    "feature",
+                )
+            )
+    records.sort(key=lambda r: r.energy_ev)
+    return dataclasses.replace(cleaned, spectrum=current), tuple(records), kk
 
 
 def _fit(repaired, s1, s2, options: JobOptions, fit_pole_pairs):
@@ -589,7 +635,8 @@ def build_summary(result: JobResult) -> dict:
             "jump": _f(c.jump),
             "relative": _f(c.relative),
             "kept_side": c.kept,
-            "points_shifted": c.points,
+            "points_shifted": c.points if c.applied else 0,
+            "applied": c.applied,
             "reason": c.reason,
         }
         for c in result.steps

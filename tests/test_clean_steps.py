@@ -66,3 +66,22 @@ def test_no_steps_no_change():
     leveled, corr = level_steps(cl.spectrum, cl.outliers)
     assert corr == ()
     np.testing.assert_array_equal(leveled.eps, cl.spectrum.eps)
+
+
+def test_pipeline_leaves_a_step_that_kk_does_not_support():
+    # A "step" claimed on clean data (what a sharp feature on a sparse grid can look like to
+    # the detector) must not be levelled: shifting half a source would create the very
+    # inconsistency it is meant to remove (common practice, no source).
+    from kkcheck.clean import Outlier
+    from kkcheck.kk import KKTestOptions
+    from kkcheck.pipeline import JobOptions, _level_steps_if_consistent
+
+    a, _, _ = _sources()
+    cl = clean(merge([a]).spectrum)
+    i = len(cl.spectrum) // 2
+    v = float(cl.spectrum.eps.real[i])
+    fake = Outlier(float(cl.spectrum.energy_ev[i]), "uv", "eps1", "step", i, v, v - 0.3, 9.0)
+    out, (rec,), kk = _level_steps_if_consistent(cl, [fake], JobOptions(), KKTestOptions())
+    assert rec.applied is False and "left as measured" in rec.reason
+    np.testing.assert_array_equal(out.spectrum.eps, cl.spectrum.eps)
+    assert kk.verdict == "consistent"

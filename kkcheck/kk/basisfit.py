@@ -174,18 +174,24 @@ class BasisFit:
         The fitted model.
     chi2 : float
         Sum of squared weighted residuals over the data rows (the penalty excluded).
-    dof : int
-        Data rows minus free parameters (parameters not held at a bound), at least 1.
+    dof : float
+        Data rows minus ``n_effective``, at least 1.
     n_free : int
-        Number of free parameters.
+        Number of free parameters (not held at a bound).
+    n_effective : float
+        Effective number of parameters the data pay for: the trace of the hat matrix over the
+        data rows, rank(J_f) minus the leverage of the prior rows (ties, gap smoothness,
+        curvature penalty). Nodes pinned by a prior cost the data less than one degree of
+        freedom, so n_effective <= n_free.
     status : str
         Message of the least-squares solver.
     """
 
     model: KKBasisModel
     chi2: float
-    dof: int
+    dof: float
     n_free: int
+    n_effective: float
     status: str
 
 
@@ -544,6 +550,8 @@ def fit_kk_basis(
     norms = np.linalg.norm(a_mat, axis=0)
     norms[norms == 0] = 1.0
     a_sc = a_mat / norms
+    n_data_rows = a_data.shape[0]
+    q = None
     if a_sc.shape[0] > 2 * a_sc.shape[1]:
         # same minimiser with far fewer rows: ||a x - y||^2 = ||r x - q^T y||^2 + const, and
         # the singular values of a[:, free] are those of r[:, free]
@@ -559,11 +567,21 @@ def fit_kk_basis(
         at_bound[0] = xs[0] <= 0
     free = ~at_bound
     n_free = int(free.sum())
-    dof = max(1, y_data.size - n_free)
     # covariance of the free parameters from the (scaled) design incl. the penalty rows
     jf = a_sc[:, free]
-    _, sv, vt = np.linalg.svd(jf, full_matrices=False)
+    u, sv, vt = np.linalg.svd(jf, full_matrices=False)
     keep = sv > 1e-10 * sv[0]
+    # effective parameters: hat-matrix trace over the data rows = rank - prior-row leverage
+    u_r = u[:, keep]
+    n_pen = a_mat.shape[0] - n_data_rows
+    if n_pen == 0:
+        lev_pen = 0.0
+    elif q is not None:
+        lev_pen = float(np.sum((q[n_data_rows:] @ u_r) ** 2))
+    else:
+        lev_pen = float(np.sum(u_r[n_data_rows:] ** 2))
+    n_eff = float(np.count_nonzero(keep)) - lev_pen
+    dof = max(1.0, y_data.size - n_eff)
     lf = (vt[keep].T / sv[keep]) / norms[free][:, None]
     cov_sqrt = np.zeros((p_len, lf.shape[1]))
     cov_sqrt[free] = lf * np.sqrt(max(1.0, chi2 / dof))
@@ -578,4 +596,6 @@ def fit_kk_basis(
         tied=np.zeros(n_nodes, bool) if tied is None else np.asarray(tied, bool),
         in_gap=np.zeros(n_nodes, bool) if in_gap is None else np.asarray(in_gap, bool),
     )
-    return BasisFit(model=model, chi2=chi2, dof=dof, n_free=n_free, status=status)
+    return BasisFit(
+        model=model, chi2=chi2, dof=dof, n_free=n_free, n_effective=n_eff, status=status
+    )

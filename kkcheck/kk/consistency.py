@@ -391,7 +391,7 @@ def kk_test(
     counted = (~bad) & (wt > 0)
     zc = np.concatenate([z1[counted], z2[counted]])
     chi2 = float(zc @ zc)
-    dof = max(1, zc.size - fit.n_free)
+    dof = max(1.0, zc.size - fit.n_effective)
     chi2_dof = chi2 / dof
     regions = find_regions(e, z1, counted, "eps1", opt) + find_regions(e, z2, counted, "eps2", opt)
     model = fit.model

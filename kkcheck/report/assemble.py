@@ -158,6 +158,12 @@ def report_context(result, figure_list, *, command: str = "") -> dict:
     }
     for c in s.get("step_corrections", []):
         side = "higher" if c["kept_side"] == "below" else "lower"
+        if not c["applied"]:
+            ctx["cautions"].append(
+                f"Possible step in '{c['source']}' at {c['energy_ev']:.4g} eV "
+                f"({c['component']} jumps {c['jump']:+.4g}): {c['reason']}."
+            )
+            continue
         ctx["cautions"].append(
             f"Detector-changeover step in '{c['source']}' at {c['energy_ev']:.4g} eV: "
             f"{c['component']} jumps {c['jump']:+.4g} ({100 * c['relative']:+.1f} %); "
