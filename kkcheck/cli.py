@@ -153,7 +153,7 @@ def build_parser() -> argparse.ArgumentParser:
         "run",
         help="the whole job from a TOML config file, with report",
         description="Run the whole job (check, repair, fit, slab check, report) as a TOML "
-        "config file describes. See DEVELOPERS.md for the keys.",
+        "config file describes. README.md lists the keys.",
     )
     r.add_argument("config", metavar="CONFIG", help="TOML file")
     r.add_argument("--out", "-o", metavar="DIR", help="overrides the config's output folder")
