@@ -37,10 +37,14 @@ def flag_names(value: int) -> list[str]:
     return [f.name.lower() for f in Flag if int(value) & int(f)]
 
 
-def _ro(a, dtype) -> np.ndarray:
+def readonly_array(a, dtype=float) -> np.ndarray:
+    """A read-only copy of ``a`` as ``dtype`` (what frozen result types hold)."""
     arr = np.array(a, dtype=dtype, copy=True)
     arr.setflags(write=False)
     return arr
+
+
+_ro = readonly_array
 
 
 @dataclass(frozen=True)

@@ -41,6 +41,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import lsq_linear, nnls
 
+from ..spectrum import readonly_array as _ro
 from .kernels import pl_kk_matrix
 
 __all__ = [
@@ -52,12 +53,6 @@ __all__ = [
     "fit_kk_basis",
     "design_matrices",
 ]
-
-
-def _ro(a) -> np.ndarray:
-    arr = np.array(a, dtype=float, copy=True)
-    arr.setflags(write=False)
-    return arr
 
 
 @dataclass(frozen=True)

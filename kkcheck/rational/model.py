@@ -20,6 +20,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..spectrum import readonly_array
+
 __all__ = [
     "PolePairModel",
     "PhysicalTerm",
@@ -36,9 +38,7 @@ __all__ = [
 
 
 def _ro(a, dtype) -> np.ndarray:
-    out = np.array(a, dtype=dtype).reshape(-1)
-    out.setflags(write=False)
-    return out
+    return readonly_array(np.ravel(a), dtype)
 
 
 @dataclass(frozen=True, eq=False)
