@@ -72,6 +72,8 @@ __all__ = [
 ]
 
 SUMMARY_SCHEMA = "kkcheck.summary/1"
+#: Fewest points a job accepts (the KK test needs at least this many).
+MIN_POINTS = 8
 
 
 @dataclass(frozen=True)
@@ -395,6 +397,13 @@ def analyse(
 
     say = progress or (lambda s: None)
     t0 = time.perf_counter()
+    total = sum(len(d) for d in datasets)
+    if total < MIN_POINTS:
+        where = ", ".join(d.provenance.path or d.name for d in datasets)
+        raise InputError(
+            f"{total} data points in all; the Kramers-Kronig test needs at least {MIN_POINTS}",
+            path=where,
+        )
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         say("merging sources")

@@ -173,3 +173,11 @@ def test_demo_data_as_a_user_runs_it(tmp_path):
     ]
     kinds = {o["kind"] for o in s["outliers"]}
     assert "spike" in kinds and "step" in kinds
+
+
+def test_too_few_points_for_the_kk_test_names_the_file(tmp_path, capsys):
+    few = tmp_path / "few.csv"
+    few.write_text("energy (eV),n,k\n1.0,1.5,0.01\n1.1,1.5,0.01\n1.2,1.5,0.01\n")
+    assert main(["check", str(few), "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "few.csv" in err and "at least 8" in err
