@@ -456,7 +456,9 @@ def analyse(
             bad = (flags & bits) != 0
             for g in kk.regions:
                 bad |= (repaired.energy_ev >= g.from_ev) & (repaired.energy_ev <= g.to_ev)
-            bad &= (flags & int(Flag.REPLACED | Flag.FILLED)) == 0
+            bad &= (flags & int(Flag.REPLACED)) == 0
+            # gap fills are the KK model's guess, not measurements: they steer the fit little
+            bad |= (flags & int(Flag.FILLED)) != 0
             s1 = np.where(bad, 10.0 * s1, s1)
             s2 = np.where(bad, 10.0 * s2, s2)
             fitted = _fit(repaired, s1, s2, options, fit_pole_pairs)
