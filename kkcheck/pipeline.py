@@ -798,6 +798,14 @@ def write_outputs(result: JobResult, out_dir, *, command: str = "") -> JobResult
         files.append(write_text(txt, parameter_table(result.fit.model), overwrite_protect=protect))
     if result.repair is not None:
         files.extend(_write_repaired(result, out, prov, protect))
+        changes = result.repair.changes_frame()
+        text = (
+            f"# kkcheck {__version__}: every value the repair replaced or added\n"
+            "# reason: spike / step (replaced by the KK-consistent prediction from the other "
+            "data), fill (gap), ...; old is nan for added points\n"
+            + changes.to_csv(index=False, lineterminator="\n")
+        )
+        files.append(write_text(out / "repair_changes.csv", text, overwrite_protect=protect))
     if result.options.html:
         from .report.assemble import write_report
 

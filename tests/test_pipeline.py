@@ -66,6 +66,13 @@ def test_demo_produces_every_artefact(tmp_path):
         assert 2.3 < r["from_ev"] and r["to_ev"] < 2.9, r
     m = json.loads((out / "model.json").read_text())
     assert m["passivity"]["certified"] and m["stable"]
+    # the closed-form Lorentz phonon planted by reference_data/make_demo.py (0.9, 0.118 eV,
+    # 0.004 eV) comes back as one pair
+    ph = [t for t in m["terms"] if abs(t.get("w0_ev", 0) - 0.118) < 0.002]
+    assert len(ph) == 1 and ph[0]["gamma_ev"] == pytest.approx(0.004, rel=0.05)
+    changes = (out / "repair_changes.csv").read_text().splitlines()
+    assert changes[2].startswith("energy_ev,source,component,old,new,reason")
+    assert any(",spike" in c for c in changes) and any(",fill" in c for c in changes)
     html = (out / "report.html").read_text()
     assert html.index("INCONSISTENT") < html.index("<table")
     md = (out / "summary.md").read_text()
