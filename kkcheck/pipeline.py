@@ -1003,7 +1003,8 @@ def _short_path(p: Path) -> str:
 
 
 def demo(out_dir=None, *, progress: bool = False) -> JobResult:
-    """The whole job on the bundled demo data; writes to reports/demo by default."""
-    out = Path(out_dir) if out_dir is not None else Path("reports") / "demo"
+    """The whole job on the bundled demo data; writes to the checkout's reports/demo by default."""
+    repo = Path(__file__).resolve().parent.parent
+    out = Path(out_dir) if out_dir is not None else Path(_short_path(repo / "reports" / "demo"))
     opts = JobOptions(do_fit=True, html=True, title="ZX-7 film (invented demo data)")
     return run_job(demo_inputs(), out, opts, progress, "kkcheck demo")

@@ -120,7 +120,8 @@ def _save(fig: Figure, path_stem) -> Path:
     # No bbox_inches="tight": the PNG keeps exactly figsize * dpi pixels; the constrained
     # layout engine keeps labels inside the canvas.
     fig.savefig(png, dpi=FIGURE_DPI, format="png", metadata={"Software": None})
-    fig.savefig(pdf, format="pdf", metadata={"Creator": "kkcheck"})
+    # no creation date: the same data give byte-identical files (diffable example reports)
+    fig.savefig(pdf, format="pdf", metadata={"Creator": "kkcheck", "CreationDate": None})
     return png
 
 
