@@ -701,7 +701,7 @@ def build_summary(result: JobResult) -> dict:
         "outliers": outliers,
         "step_corrections": steps,
         "kk": kk_block,
-        "sum_rules": _plain_record(result.sum_rules),
+        "sum_rules": _sum_rule_block(result.sum_rules),
         "parameters": result.options.as_dict(),
         "warnings": list(result.warnings),
     }
@@ -737,25 +737,26 @@ def build_summary(result: JobResult) -> dict:
     return summary
 
 
-def _plain_record(obj):
-    """Frozen dataclass / numpy values -> JSON-friendly plain values."""
-    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
-        return {f.name: _plain_record(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
-    if isinstance(obj, dict):
-        return {str(k): _plain_record(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_plain_record(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return [_plain_record(v) for v in obj.tolist()]
-    if isinstance(obj, (np.floating, float)):
-        return _f(obj)
-    if isinstance(obj, (np.integer,)):
-        return int(obj)
-    if isinstance(obj, (np.bool_,)):
-        return bool(obj)
-    if isinstance(obj, complex):
-        return [_f(obj.real), _f(obj.imag)]
-    return obj
+def _sum_rule_block(r) -> dict:
+    """Scalars of the sum-rule result plus its running f-sum on at most 25 energies."""
+    pick = np.unique(np.linspace(0, r.energy_ev.size - 1, 25).round().astype(int))
+    return {
+        "window_ev": [_f(r.window_ev[0]), _f(r.window_ev[1])],
+        "fsum_ev2": _f(r.fsum_ev2[-1]),
+        "effective_plasma_energy_ev": _f(r.plasma_energy_ev[-1]),
+        "inertial_n_ev": _f(r.inertial_n_ev),
+        "inertial_eps1_ev": _f(r.inertial_eps1_ev),
+        "expected_inertial_eps1_ev": _f(r.expected_inertial_eps1_ev),
+        "caution": r.caution,
+        "running": {
+            "energy_ev": [_f(x) for x in r.energy_ev[pick]],
+            "effective_plasma_energy_ev": [_f(x) for x in r.plasma_energy_ev[pick]],
+        },
+        "notes": "integrals over the measured window only: int_{x0}^{E} E' eps2 dE' "
+        "(fsum_ev2), sqrt((2/pi) fsum) (effective plasma energy), int (n - 1) dE and "
+        "int (eps1 - 1) dE; the full-axis inertial values are 0 (insulator) or "
+        "-(pi/2) sigma0/eps0 (conductor)",
+    }
 
 
 # ------------------------------------------------------------------------------------ writing
