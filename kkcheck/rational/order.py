@@ -24,7 +24,8 @@ class OrderRow:
     Attributes
     ----------
     n_start : int
-        Entries the fit started with.
+        Search step: the band start has this many entries; the pole-adding starts have the
+        previous step's converged entries plus one pair (see ``start``).
     n_pairs : int
         Entries in the fitted model (pairs plus real poles, conductor not counted).
     n_params : int
@@ -38,6 +39,11 @@ class OrderRow:
         2N ln(RSS_w / 2N) + n_params ln(2N), RSS_w the weighted residual sum of squares.
     passive_raw : bool
         Whether the unconstrained fit was already certified passive.
+    start : str
+        Start that won this step: ``"band"`` (poles spread over the data band) or the site of
+        the pair added to the previous step's poles (``"residual"``, ``"above"``, ``"below"``;
+        :func:`~kkcheck.rational.vfit.poles_plus_pair`), with ", widened above the band" when
+        the kept fit is its refit by :func:`~kkcheck.rational.vfit.broaden_above_band`.
     """
 
     n_start: int
@@ -48,6 +54,7 @@ class OrderRow:
     chi2_dof: float | None
     bic: float
     passive_raw: bool
+    start: str = "band"
 
 
 def fit_metrics(model: PolePairModel, energy_ev, eps, w1, w2, have_sigma: bool):
