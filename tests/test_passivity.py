@@ -102,3 +102,27 @@ def test_wrong_sign_conductor_and_unstable():
     assert not certify_passivity(unstable).certified
     with pytest.raises(ValueError, match="stable"):
         enforce_passivity(unstable, [1.0, 2.0], [1 + 1j, 1 + 1j])
+
+
+def test_certificate_never_passes_what_dense_sampling_finds_negative():
+    # Safety property (common practice, no source): on random models mixing broad and sharp
+    # pairs spread over 4 decades, whenever brute-force sampling finds eps2 < 0 the whole-axis
+    # certificate must not certify. (The converse may differ: sampling misses narrow bands.)
+    from kkcheck.rational import PolePairModel
+    from kkcheck.rational.passivity import certify_passivity, dense_passivity_check
+
+    rng = np.random.default_rng(2024)
+    caught = 0
+    for _ in range(150):
+        k = int(rng.integers(2, 5))
+        beta = 10 ** rng.uniform(-1, 1.5, k)
+        alpha = beta * 10 ** rng.uniform(-3, -0.3, k)  # sharp to broad
+        poles = -alpha + 1j * beta
+        res = (rng.normal(0, 0.2, k) + 1j * rng.normal(-1, 0.5, k)) * beta
+        m = PolePairModel(2.0, poles, res)
+        dense = dense_passivity_check(m, 1e-3, 1e3, 100_001)
+        cert = certify_passivity(m)
+        if not dense.passive:
+            caught += 1
+            assert not cert.certified, (poles, res)
+    assert caught > 10  # the sweep does contain non-passive models

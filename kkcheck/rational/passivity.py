@@ -223,6 +223,28 @@ def _trim_sign(coef: np.ndarray, mag: np.ndarray, from_top: bool) -> float:
     return 0.0
 
 
+def _safety_points(model: PolePairModel) -> np.ndarray:
+    """Extra test energies [eV]: each pole's resonance at 0, ±1/2, ±1, ... ±8 half-widths, and a
+    200-point log grid from min|a|/100 to max|a| x 100.
+
+    The roots of P come from a monomial-basis polynomial; with a sharp pole among broad ones
+    their computed positions can miss a narrow negative band by more than its width. eps2 of a
+    pole pair varies on the scale of its half-width |Re a| around w = |Im a|, so sampling there
+    catches what the roots miss (measured: a -3.5e-4 band at 13.8-14.05 eV next to a pole at
+    12.3 eV that the roots alone passed).
+    """
+    a = model.poles
+    a = a[np.abs(a) > 0]
+    if a.size == 0:
+        return np.zeros(0)
+    steps = np.arange(-8.0, 8.5, 0.5)
+    local = (np.abs(a.imag)[:, None] + np.abs(a.real)[:, None] * steps[None, :]).ravel()
+    mag = np.abs(a)
+    grid = np.geomspace(mag.min() / 100, mag.max() * 100, 200)
+    out = np.concatenate([local, grid])
+    return out[out > 0]
+
+
 def certify_passivity(model: PolePairModel) -> PassivityCertificate:
     """Certify eps2(w) >= 0 for all 0 < w < inf, not only at samples.
 
@@ -242,7 +264,9 @@ def certify_passivity(model: PolePairModel) -> PassivityCertificate:
     closed forms (see :class:`~kkcheck.rational.model.PolePairModel`) in u = w^2/xs, with xs the
     geometric mean of |a_p|^2 for conditioning. P changes sign only at its positive real roots,
     so eps2 is evaluated (directly from the partial fractions, not from P) at the real parts of
-    every root with positive real part and at geometric midpoints between consecutive ones; the
+    every root with positive real part and at geometric midpoints between consecutive ones, and
+    as a safety net around every pole's resonance and on a log grid (:func:`_safety_points`,
+    because computed roots of a monomial-basis P can be off for sharp poles); the
     signs of the lowest and highest non-negligible coefficients of P give the limits w -> 0 and
     w -> inf. Including near-real complex roots catches a touching pair that round-off turned
     complex. A value below -tol * sum_p |eps2_p(w)| (tol = :data:`ROUNDOFF_RTOL`) is a
@@ -285,7 +309,7 @@ def certify_passivity(model: PolePairModel) -> PassivityCertificate:
         pts = np.array([np.sqrt(xs)])
     mids = np.sqrt(pts[1:] * pts[:-1])
     ends = np.array([pts[0] / 10, pts[-1] * 10])
-    test_w = np.sort(np.concatenate([pts, mids, ends]))
+    test_w = np.unique(np.concatenate([pts, mids, ends, _safety_points(model)]))
     terms = model.eps2_terms(test_w)
     val = terms.sum(axis=-1)
     tol = ROUNDOFF_RTOL * np.abs(terms).sum(axis=-1)
