@@ -198,6 +198,15 @@ CASES = [
         r"^negative uncertainty -0\.1; expected a standard uncertainty >= 0",
     ),
     (
+        # N = n + i k has n >= 0 in both time conventions (Born & Wolf, Principles of
+        # Optics, ch. 14: the sign of k, not n, carries the convention); from memory
+        "negative_n_column",
+        b"energy_ev,n,k\n1,-2,0.3\n2,-2.1,0.3\n3,-2.2,0.3\n",
+        {},
+        2,
+        r"^negative refractive index n = -2 \(3 of 3 rows\); expected n >= 0",
+    ),
+    (
         "nul_byte",
         b"energy_ev,n,k\n1,2,3\n2,2\x00,3\n3,2,3\n",
         {},

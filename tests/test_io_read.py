@@ -286,6 +286,18 @@ def test_duplicates_differing_averaged_with_warning(tmp_path):
     assert ds.sigma_eps1[1] == pytest.approx(2 * np.hypot(1.3 * s, 0.2 * s), rel=1e-12)
 
 
+def test_a_few_negative_n_kept_with_warning(tmp_path):
+    # n >= 0 for N = n + i k in either convention (Born & Wolf, Principles of Optics, ch. 14;
+    # from memory): one negative n among four is kept as measured, named, and warned about
+    text = "energy_ev,n,k\n1,0.05,3\n2,-0.01,3.2\n3,0.04,3.4\n4,0.06,3.6\n"
+    with pytest.warns(
+        RuntimeWarning, match=r"negative refractive index n on 1 row\(s\) \(lines 3\)"
+    ):
+        ds = read_table(_write(tmp_path, text))
+    # eps = (n + i k)^2: eps2 = 2 n k = 2 * (-0.01) * 3.2 = -0.064 (closed form)
+    assert ds.eps[1].imag == pytest.approx(-0.064, abs=1e-12)
+
+
 def test_both_pairs_use_eps(tmp_path):
     text = "energy_ev,eps1,eps2,n,k\n1,-5,12,2,3\n2,-5,12,2,3\n3,-5,12,2,3\n"
     ds = read_table(_write(tmp_path, text))

@@ -44,7 +44,8 @@ What is read
   a directory, empty file or only comments, fewer than three columns, unknown header names,
   a row with a different number of cells, text where a number belongs, NaN/inf, axis values
   <= 0, fewer than :data:`MIN_POINTS` distinct axis values, all axis values equal,
-  negative uncertainties.
+  negative uncertainties, an n column negative on half its rows or more (a few negative n
+  are kept with a RuntimeWarning).
 """
 
 from __future__ import annotations
@@ -612,7 +613,38 @@ def _check_axis(p: _Parsed, lay: _Layout, shown: str) -> np.ndarray:
     return energy
 
 
+def _check_negative_n(p: _Parsed, lay: _Layout, shown: str) -> None:
+    """Refuse an n column that is mostly negative; warn about a few negative n.
+
+    N = n + i k with n >= 0 in either time convention (exp(+iwt) tables flip the sign of k,
+    not of n), so a negative n is a sign or column error: squared, it turns eps2 negative and
+    the KK test then reports the whole spectrum inconsistent by orders of magnitude.
+    """
+    n = p.v1 if lay.quantity == "nk" else (p.nk_check[0] if p.nk_check is not None else None)
+    if n is None:
+        return
+    neg = n < 0
+    if not neg.any():
+        return
+    i = _first(neg)
+    if np.mean(neg) >= 0.5:
+        raise InputError(
+            f"negative refractive index n = {n[i]:g} ({int(neg.sum())} of {n.size} rows); "
+            "expected n >= 0 (N = n + i k; an exp(+iwt) table changes the sign of k, not n)",
+            shown,
+            int(p.lines[i]),
+        )
+    warnings.warn(
+        f"{shown}: negative refractive index n on {int(neg.sum())} row(s) (lines "
+        f"{_lines_text(p.lines[neg])}); kept as measured, but (n + i k)^2 then has eps2 < 0 "
+        "there",
+        RuntimeWarning,
+        stacklevel=3,
+    )
+
+
 def _values_to_eps(p: _Parsed, lay: _Layout, shown: str):
+    _check_negative_n(p, lay, shown)
     with np.errstate(over="ignore", invalid="ignore"):
         if lay.quantity == "nk":
             eps = nk_to_eps(p.v1, p.v2)
