@@ -45,7 +45,8 @@ tie_tolerance`: chi2/dof 130-220); with the noise estimated from the data chi2/d
 (0.3-1.5) because the local estimate sees part of the peak as noise. Peaks narrower than ~3
 points per FWHM (a single-point eps2 spike) are treated as inconsistent with eps1: that is the
 test's resolution limit. Cost: dense, O(M P^2) for M
-points and P nodes; 0.1 s at 600 points, 0.8 s at 2000, ~11 s at 5000 (one core).
+points and P nodes; 0.1 s at 600 points, 0.8 s at 2000, ~3 s at 3000, ~11 s at 5000 (one core;
+the split intervals add ~10% nodes and ~20-30% time at 3000 points).
 
 References
 ----------
