@@ -314,9 +314,10 @@ def estimate_scale_offset(
     1964; Holland & Welsch 1977); the standard errors are RLM's. When the eps1 rows carry no
     information to tell a scale from an offset (the reference eps1 nearly constant and eps2
     nearly zero in the overlap), only the scale is fitted and the note says so. The same
-    happens when the fitted offset is not significant (|o| < 3 sd) and keeping it would
-    inflate the scale's standard error more than threefold (nearly collinear columns, as
-    in a transparent overlap): the simpler model is reported, with a note. Regression
+    happens when keeping the offset would inflate the scale's standard error more than
+    threefold (nearly collinear columns, as in a transparent overlap) and either the offset
+    is not significant (|o| < 3 sd) or the scale is then undetermined (s < 3 sd, including
+    negative s): the simpler model is reported, with a note. Regression
     dilution from noise in the reference is neglected (it is second order when the overlap
     spans structure much larger than the noise).
 
@@ -358,19 +359,38 @@ def estimate_scale_offset(
         X = X[:, :1]
         note = "eps1 offset cannot be told from the scale in this overlap; scale fitted alone"
     coef, bse = _robust_fit(X, y)
-    if X.shape[1] == 2 and abs(coef[1]) < 3 * bse[1]:
-        # offset not significant: if it costs much precision (scale and offset nearly
-        # collinear, e.g. a transparent overlap), the simpler scale-only model is reported
+    if X.shape[1] == 2:
+        # scale and offset nearly collinear (e.g. a transparent overlap where eps1 hardly
+        # changes): the offset buys its fit with a scale that may be anything, even negative
+        # (a silica overlap gave -0.45 +- 0.38 with offset 3.1). The simpler scale-only model
+        # is reported unless the offset is significant AND the scale stays determined.
         c1, b1 = _robust_fit(X[:, :1], y)
         if bse[0] > 3 * b1[0]:
-            note = (
-                f"eps1 offset not significant ({coef[1]:.3g} +- {bse[1]:.2g}) and nearly "
-                "collinear with the scale in this overlap; scale fitted alone"
-            )
-            X, coef, bse = X[:, :1], c1, b1
+            if abs(coef[1]) < 3 * bse[1]:
+                why = f"eps1 offset not significant ({coef[1]:.3g} +- {bse[1]:.2g})"
+            elif not coef[0] > 3 * bse[0]:
+                why = (
+                    f"with an eps1 offset ({coef[1]:.3g} +- {bse[1]:.2g}) the scale is "
+                    f"undetermined ({coef[0]:.3g} +- {bse[0]:.2g})"
+                )
+            else:
+                why = ""
+            if why:
+                note = f"{why}; nearly collinear with the scale in this overlap; scale fitted alone"
+                X, coef, bse = X[:, :1], c1, b1
     if X.shape[1] == 1:
         return ScaleFit(float(coef[0]), float(bse[0]), 0.0, float("nan"), n, note)
     return ScaleFit(float(coef[0]), float(bse[0]), float(coef[1]), float(bse[1]), n, note)
+
+
+def _determined(f: ScaleFit) -> bool:
+    """A scale worth applying: positive and at least three standard errors from zero.
+
+    eps_corrected = (eps - o) / s with s <= 0 flips the sign of eps2 (an active medium), and a
+    scale known no better than +-1/3 of itself corrects nothing; such estimates are reported
+    but never applied.
+    """
+    return bool(np.isfinite(f.scale) and f.scale > 0 and f.scale > 3 * f.scale_sigma)
 
 
 def _robust_fit(X: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -673,7 +693,9 @@ def merge(
     overlap the reference but are chained to it (A-B-C with A the reference) get the
     composition along the path of the overlap graph with the smallest accumulated relative
     scale variance: S_C = s_BC S_B, O_C = s_BC O_B + o_BC, errors to first order.
-    Applied correction: eps_corrected = (eps - eps1_offset) / scale, sigma / scale.
+    Applied correction: eps_corrected = (eps - eps1_offset) / scale, sigma / scale, only when
+    the scale is positive and at least three standard errors from zero (else reported, not
+    applied, with a RuntimeWarning).
 
     Blend weights are 1/sigma^2 per component, sigma the given uncertainty or, when none
     was given, the white-noise estimate (:func:`kkcheck.clean.neighbour_noise_sigma`). The
@@ -701,7 +723,9 @@ def merge(
                 raise InputError(f"reference index {ref} is outside 0..{n - 1}")
         notes.append(f"reference {names[ref]!r} (chosen by the user)")
     fits = _propagate(n, ref, _pair_fits(datasets, min_overlap_points))
-    applied = [apply_correction and i in fits and i != ref for i in range(n)]
+    applied = [
+        apply_correction and i in fits and i != ref and _determined(fits[i][0]) for i in range(n)
+    ]
     corr = [(fits[i][0].scale, fits[i][0].eps1_offset) if applied[i] else None for i in range(n)]
     for i in range(n):
         if i == ref:
@@ -715,6 +739,13 @@ def merge(
             warnings.warn(msg, RuntimeWarning, stacklevel=2)
             continue
         f = fits[i][0]
+        if apply_correction and not _determined(f):
+            msg = (
+                f"{names[i]}: scale {f.scale:.3g} +- {f.scale_sigma:.2g} relative to "
+                f"{names[ref]!r} is not determined by the overlap (expected a positive scale "
+                "at least 3 standard errors from zero); merged as measured"
+            )
+            warnings.warn(msg, RuntimeWarning, stacklevel=2)
         notes.append(
             f"{names[i]}: scale {f.scale:.4f} +- {f.scale_sigma:.4f}, eps1 offset "
             f"{f.eps1_offset:.4g} +- {f.eps1_offset_sigma:.2g} relative to {names[ref]!r}; "
@@ -801,7 +832,7 @@ def rank_references(
         pairs = _pair_fits(datasets, min_overlap_points)
         for r in range(n):
             fits = _propagate(n, r, pairs)
-            applied = [i in fits and i != r for i in range(n)]
+            applied = [i in fits and i != r and _determined(fits[i][0]) for i in range(n)]
             corr = [
                 (fits[i][0].scale, fits[i][0].eps1_offset) if applied[i] else None for i in range(n)
             ]
@@ -814,6 +845,8 @@ def rank_references(
                 f = estimate_scale_offset(datasets[j], others, min_points=min_overlap_points)
             except InputError:
                 continue  # no overlap: nothing to correct, same as the baseline
+            if not _determined(f):
+                continue  # merge() would not apply it either
             corr = [None] * n
             corr[j] = (f.scale, f.eps1_offset)
             fits = dict(unit)

@@ -260,6 +260,45 @@ def test_rank_references_reference_mode_ties_by_kk_linearity():
     assert off_source(trials) is None  # no suspect trials: cannot name a source
 
 
+def test_transparent_overlap_gives_a_positive_scale_near_one():
+    # Fused silica (Malitson 1965 Sellmeier, kkcheck.materials): in a 0.08 eV overlap eps1
+    # changes by ~0.002, about the noise, so scale and offset are collinear. Both sources are
+    # the same material: the scale must be 1 within the noise (closed form), never the
+    # negative or near-zero scale plus a large offset the joint fit can wander to.
+    from kkcheck.materials import sellmeier_silica
+
+    for seed in range(8):
+        rng = np.random.default_rng(seed)
+        ds = []
+        for name, e in (("a", np.linspace(0.55, 1.38, 150)), ("b", np.linspace(1.30, 3.5, 150))):
+            noise = 2e-3 * rng.normal(size=e.size) + 2e-5j * rng.normal(size=e.size)
+            ds.append(Dataset(name, e, sellmeier_silica(e) + noise))
+        f = estimate_scale_offset(ds[1], ds[0])
+        assert f.scale == pytest.approx(1.0, abs=0.01), (seed, f)
+        assert f.eps1_offset == 0.0 and "scale fitted alone" in f.note
+        rep = merge(ds, reference="a").sources[1]
+        assert rep.applied and rep.scale == pytest.approx(1.0, abs=0.01)
+
+
+def test_undetermined_scale_is_reported_not_applied():
+    # An overlap where eps is only noise around 0 (common practice, no source: such an
+    # overlap carries no scale information); a scale near 0 would blow the source up 1/s-fold
+    # and a negative one would flip eps2 to an active medium. Reported, not applied, warned.
+    rng = np.random.default_rng(3)
+    ea, eb = np.linspace(1.0, 2.0, 60), np.linspace(1.8, 3.0, 60)
+    eps_a = 1e-3 * (rng.normal(size=60) + 1j * rng.normal(size=60))
+    eps_b = 1e-3 * (rng.normal(size=60) + 1j * rng.normal(size=60))
+    eps_b[eb > 2.0] += 2.0 + 0.5j
+    a, b = Dataset("a", ea, eps_a), Dataset("b", eb, eps_b)
+    with pytest.warns(RuntimeWarning, match="is not determined by the overlap"):
+        res = merge([a, b], reference="a")
+    rep = res.sources[1]
+    assert not rep.applied
+    np.testing.assert_allclose(
+        res.spectrum.eps[res.spectrum.energy_ev > 2.0], eps_b[eb > 2.0], rtol=1e-12
+    )
+
+
 def test_two_sources_cannot_be_told_apart():
     # With two sources the two corrected merges differ by a global scale: they tie.
     a = _ds("a", np.linspace(1.0, 3.2, 300), seed=14)
