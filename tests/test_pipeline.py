@@ -144,3 +144,33 @@ def test_lorentz_oscillator_fit_recovers_its_parameters(tmp_path):
     (term,) = [t for t in res.model["terms"] if t.get("kind") in ("lorentz", "modified_lorentz")]
     assert term["w0_ev"] == pytest.approx(2.0, rel=5e-3)
     assert term["gamma_ev"] == pytest.approx(0.2, rel=2e-2)
+
+
+def test_source_ranking_bins_large_spectra_like_the_main_test(monkeypatch):
+    # Two overlapping 1200-point sources of a Tauc-Lorentz film (Jellison & Modine 1996 closed
+    # form). Every KK test of the job, the source-ranking trials included, must see the
+    # spectrum binned to about max_points: the dense fit is M^2 in memory (two 5348-point
+    # sources took 4.6 GB unbinned). Size bound: common practice, no source.
+    from kkcheck.kk import consistency
+    from kkcheck.pipeline import JobOptions, analyse
+    from kkcheck.spectrum import Dataset
+
+    rng = np.random.default_rng(11)
+    ds = []
+    for name, (lo, hi) in (("uv", (1.0, 3.2)), ("vis", (2.8, 6.0))):
+        e = np.linspace(lo, hi, 1200)
+        eps = 1.9 + tauc_lorentz(e, 122.0, 3.45, 2.54, 1.20)
+        ds.append(
+            Dataset(name, e, eps + 1e-3 * (rng.normal(size=e.size) + 1j * rng.normal(size=e.size)))
+        )
+    seen = []
+    real = consistency.kk_test
+
+    def spy(spectrum, *args, **kwargs):
+        seen.append(len(spectrum.energy_ev))
+        return real(spectrum, *args, **kwargs)
+
+    monkeypatch.setattr(consistency, "kk_test", spy)
+    res = analyse(ds, JobOptions(max_points=400))
+    assert res.ranking is not None and len(seen) >= 3  # baseline + one trial per source + main
+    assert max(seen) < 1000, seen  # 2400 points in, about 400 (plus sharp points) analysed
