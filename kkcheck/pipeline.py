@@ -232,8 +232,10 @@ class JobResult:
         for s in self.summary.get("merge", {}).get("sources", []):
             if s.get("reference"):
                 how = "reference"
-            elif s["scale"] is None:
+            elif s["scale"] is None and s.get("overlap_points", 0) == 0:
                 how = "no overlap with another source: scale and offset unknown"
+            elif s["scale"] is None:
+                how = "too little overlap to link it to the reference: scale and offset unknown"
             else:
                 how = f"scale {s['scale']:.4f}, eps1 offset {s['eps1_offset']:+.4f}"
                 how += "" if s.get("applied") else " (not applied)"
@@ -575,8 +577,9 @@ def _slab(repaired, fitted, options: JobOptions):
 
 
 def _f(x) -> float | None:
+    """A JSON-safe float: NaN and infinities become None, -0.0 becomes 0.0."""
     x = float(x)
-    return x if np.isfinite(x) else None
+    return x + 0.0 if np.isfinite(x) else None
 
 
 def build_summary(result: JobResult) -> dict:
