@@ -776,7 +776,8 @@ def write_html_report(path, context: Mapping) -> Path:
     pathlib.Path
         The written file.
     """
+    from ..io import write_text  # atomic: a half-written report never replaces a good one
+
     out = Path(os.fspath(path))
     out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(build_html(context), encoding="utf-8")
-    return out
+    return write_text(out, build_html(context))

@@ -179,7 +179,8 @@ def write_markdown_summary(path, context: Mapping) -> Path:
     pathlib.Path
         The written file.
     """
+    from ..io import write_text  # atomic: a half-written report never replaces a good one
+
     out = Path(os.fspath(path))
     out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(build_markdown(context), encoding="utf-8")
-    return out
+    return write_text(out, build_markdown(context))
