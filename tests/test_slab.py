@@ -13,7 +13,7 @@ from kkcheck.slab import coherent_slab, compare_slab, film_on_substrate, incoher
     "n, d, R, T",
     [
         # REFERENCES item 10 [V], air, lambda = 500 nm
-        (1.5, 500 / (4 * 1.5), ((1.5**2 - 1) / (1.5**2 + 1)) ** 2, None),  # quarter-wave, 0.147929
+        (1.5, 500 / (4 * 1.5), 0.147929, None),  # quarter-wave, ((N^2-1)/(N^2+1))^2
         (1.5, 500 / (2 * 1.5), 0.0, None),  # half-wave
         (2 + 0.1j, 123, 0.010397, 0.688818),
         (0.2 + 3j, 20, 0.582049, 0.304298),
@@ -26,7 +26,6 @@ def test_coherent_slab_reference_values(n, d, R, T):
         assert rt.T[0] == pytest.approx(T, abs=1e-6)
     else:  # lossless: R + T = 1
         assert rt.R[0] + rt.T[0] == pytest.approx(1.0, abs=1e-12)
-    assert R == pytest.approx(0.147929, abs=1e-6) or R == 0.0 or T is not None
 
 
 def test_incoherent_glass():
