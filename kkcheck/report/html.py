@@ -25,7 +25,8 @@ optional; a missing section is left out of the page (and the table of contents).
     ``axis`` (e.g. ``"wavelength_nm"``), ``quantity`` (``"nk"`` or ``"eps"``), ``range_ev``
     ([lo, hi] in eV), and optionally ``name``.
 ``convention`` : dict
-    ``detected`` (``"exp(-iwt)"`` or ``"exp(+iwt)"``) and ``converted`` (bool).
+    ``detected`` (``"exp(-iwt)"`` or ``"exp(+iwt)"``) and ``converted`` (bool), optionally
+    ``per_input`` (list of ``path``, ``detected``, ``converted``) to name the converted files.
 ``merge`` : dict
     ``sources``: list, in input order, of ``name``, ``range_ev``, ``eps1_offset``, ``scale``
     (eps_source ~ scale * eps_reference + eps1_offset); ``gaps_ev``: list of [lo, hi] [eV].
@@ -407,10 +408,20 @@ def _section_verdict(ctx: Mapping) -> str:
     conv = ctx.get("convention") or {}
     conv_note = ""
     if conv.get("converted"):
-        conv_note = (
-            f"<p>The input used the {_e(conv.get('detected', 'opposite'))} sign convention and "
-            "was converted to exp(−iωt) (ε₂ ≥ 0 for absorption) before every test.</p>"
+        which = [
+            Path(str(p.get("path", ""))).name
+            for p in conv.get("per_input") or ()
+            if p.get("converted")
+        ]
+        who = (
+            f"Input{'s' if len(which) > 1 else ''} {', '.join(which)} used"
+            if which
+            else "The input used"
         )
+        conv_note = (
+            f"<p>{_e(who)} the {_e(conv.get('detected', 'opposite'))} sign convention and "
+            "{verb} converted to exp(−iωt) (ε₂ ≥ 0 for absorption) before every test.</p>"
+        ).replace("{verb}", "were" if len(which) > 1 else "was")
     return (
         f'<section id="verdict" class="verdict {cls}">'
         f'<div class="word">{_e(word.upper() if cls != "neutral" else word)}</div>'
