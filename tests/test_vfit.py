@@ -9,7 +9,7 @@ from kkcheck import materials
 from kkcheck.errors import InputError
 from kkcheck.rational import dense_passivity_check, fit_pole_pairs, starting_poles, vector_fit
 from kkcheck.rational.fit import detect_conductor
-from kkcheck.rational.vfit import poles_plus_pair
+from kkcheck.rational.vfit import poles_plus_pair, polish_poles
 from kkcheck.units import sigma_nk_to_eps
 
 RNG = np.random.default_rng(59846294526092468)
@@ -134,19 +134,21 @@ def _rakic_gold_nk_table(seed):
     return w, (n + 1j * k) ** 2, s1, s2
 
 
-def test_rakic_gold_nk_noise_reaches_floor_with_few_entries():
+@pytest.mark.parametrize("seed", [1, 2, 3, 4, 5, 6])
+def test_rakic_gold_nk_noise_reaches_floor_with_few_entries(seed):
     # The Rakic 1998 Lorentz-Drude model (REFERENCES item 9) is exactly rational: Drude (conductor
     # + one real pole) plus 5 Lorentz pairs, one at 13.32 eV far above and one at 0.415 eV just
     # below the 0.5-6 eV window. So 6 entries reach the noise floor, chi2/dof ~ 1 (common
-    # practice, no source); the band-only start stalled at chi2/dof ~ 3 up to 9 entries.
-    w, e, s1, s2 = _rakic_gold_nk_table(1)
+    # practice, no source); the band-only start stalled at chi2/dof ~ 3 up to 9 entries, and
+    # vector fitting without the pole polish needed 8 (seed 5) or 10 (seed 4) entries.
+    w, e, s1, s2 = _rakic_gold_nk_table(seed)
     truth = materials.rakic_ld(w)
     r_true = np.concatenate([(truth.real - e.real) / s1, (truth.imag - e.imag) / s2])
     assert r_true @ r_true / (2 * w.size - 24) < 1.2  # the floor is reachable by the true model
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
         r = fit_pole_pairs(w, e, s1, s2)
-    assert r.conductor and r.n_pairs <= 8
+    assert r.conductor and r.n_pairs <= 7
     assert r.chi2_dof <= 1.5
     assert r.passivity.certified and r.stable
     assert dense_passivity_check(r.model, 1e-4, 1e4).passive
@@ -170,3 +172,39 @@ def test_added_pair_sites():
     assert poles_plus_pair(w, e, one.model, wt, wt, "below")[1] == pytest.approx(-0.03 + 0.3j)
     with pytest.raises(ValueError, match="site"):
         poles_plus_pair(w, e, one.model, wt, wt, "middle")
+
+
+def test_polish_moves_perturbed_poles_to_the_exact_ones():
+    # REFERENCES item 7 [V]: Lorentz d_eps=2, w0=1.5, gamma=0.3 on [0.1, 4]: pole
+    # a = -0.15 + 1.49248116 i, |c| = 1.50755672, eps_inf = 1. Started 5 % off in alpha and
+    # beta, with the residues re-solved, the polish must land on the exact pole (noise-free data:
+    # the minimum of the misfit is zero there).
+    w = np.linspace(0.1, 4, 400)
+    e = 1.0 + materials.lorentz(w, 2.0, 1.5, 0.3)
+    wt = 1 / np.abs(e)
+    start = vector_fit(w, e, [complex(-0.1575, 1.567)], n_iter=0, weight1=wt, weight2=wt)
+    assert start.model.poles[0] == pytest.approx(complex(-0.1575, 1.567))
+    r = polish_poles(w, e, start.model, wt, wt)
+    assert r.rss_after < 1e-16 < r.rss_before
+    assert r.model.poles[0] == pytest.approx(complex(-0.15, 1.49248116), abs=1e-7)
+    assert abs(r.model.residues[0]) == pytest.approx(1.50755672, abs=1e-7)
+    assert r.model.eps_inf == pytest.approx(1.0, abs=1e-8)
+
+
+def test_polish_keeps_poles_stable_and_the_conductor_at_zero():
+    # Drude + Lorentz (closed forms, REFERENCES item 8 and kkcheck.materials) with 1e-3 noise,
+    # fitted with one pair too many: whatever the polish does with the spare pair, every pole
+    # keeps Re a < 0, eps_inf > 0, the conductor term stays a pure 2 c_0/s, and the weighted
+    # misfit does not grow.
+    w = np.linspace(0.5, 6, 300)
+    e0 = 1.0 + materials.drude(w, 8.0, 0.07) + materials.lorentz(w, 1.5, 2.8, 0.6)
+    e = _noisy(e0, 1e-3, np.random.default_rng(7))
+    wt = 1 / (1e-3 * np.abs(e0))
+    start = vector_fit(w, e, starting_poles(w, 3, True, e), conductor=True, weight1=wt, weight2=wt)
+    r = polish_poles(w, e, start.model, wt, wt)
+    assert r.rss_after <= r.rss_before
+    m = r.model
+    assert np.all(m.poles.real < 0) and m.eps_inf > 0 and m.conductor_residue is not None
+    assert m.n_pairs == start.model.n_pairs
+    # the Drude conductivity wp^2/gamma = 64/0.07 is recovered to 1 % (common practice, no source)
+    assert 2 * m.conductor_residue == pytest.approx(64.0 / 0.07, rel=0.01)

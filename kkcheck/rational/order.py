@@ -42,8 +42,10 @@ class OrderRow:
     start : str
         Start that won this step: ``"band"`` (poles spread over the data band) or the site of
         the pair added to the previous step's poles (``"residual"``, ``"above"``, ``"below"``;
-        :func:`~kkcheck.rational.vfit.poles_plus_pair`), with ", widened above the band" when
-        the kept fit is its refit by :func:`~kkcheck.rational.vfit.broaden_above_band`.
+        :func:`~kkcheck.rational.vfit.poles_plus_pair`), with ", polished" when the
+        variable-projection polish (:func:`~kkcheck.rational.vfit.polish_poles`) improved it and
+        ", widened above the band" when the kept fit is its refit by
+        :func:`~kkcheck.rational.vfit.broaden_above_band`.
     """
 
     n_start: int

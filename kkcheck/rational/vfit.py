@@ -31,8 +31,11 @@ __all__ = [
     "poles_plus_pair",
     "ADDED_PAIR_SITES",
     "broaden_above_band",
+    "PolishResult",
+    "polish_poles",
 ]
 
+_EPS_INF_FLOOR = 1e-3  # smallest eps_inf the residue solve accepts (eps_inf > 0 for stability)
 _RELAX_FLOOR = 1e-8  # smallest |d~| accepted before the relaxed constraint is replaced [2]
 
 
@@ -256,7 +259,7 @@ def _solve_residues(poles, conductor, energy_ev, eps, w1, w2):
     theta = _qr_solve(a / cn, b)[0] / cn
     if theta[0] <= 0:  # eps_inf must stay positive: bound it
         lb = np.full(theta.size, -np.inf)
-        lb[0] = 1e-3 * cn[0]
+        lb[0] = _EPS_INF_FLOOR * cn[0]
         theta = lsq_linear(a / cn, b, bounds=(lb, np.inf)).x / cn
     return model_from_vector(theta, poles, conductor)
 
@@ -363,3 +366,189 @@ def vector_fit(
         )
     model = _solve_residues(a_cur, conductor, w, f, w1, w2)
     return VectorFitResult(model, it, float(change), max_cond)
+
+
+@dataclass(frozen=True)
+class PolishResult:
+    """Outcome of :func:`polish_poles`.
+
+    Attributes
+    ----------
+    model : PolePairModel
+        Polished model (stable poles, eps_inf > 0; passivity not enforced).
+    rss_before, rss_after : float
+        Weighted residual sum of squares sum((d eps1 w1)^2 + (d eps2 w2)^2) of the input
+        model and of the polished one [dimensionless].
+    evaluations : int
+        Residual evaluations used by the nonlinear solver.
+    """
+
+    model: PolePairModel
+    rss_before: float
+    rss_after: float
+    evaluations: int
+
+
+def _weighted_system(poles, conductor, w, f, w1, w2):
+    x = design_matrix(poles, conductor, w)
+    a = np.vstack([x.real * w1[:, None], x.imag * w2[:, None]])
+    b = np.concatenate([f.real * w1, f.imag * w2])
+    return a, b
+
+
+def _rss(model, w, f, w1, w2):
+    e = model.eps(w)
+    r = np.concatenate([(e.real - f.real) * w1, (e.imag - f.imag) * w2])
+    return float(r @ r)
+
+
+def polish_poles(
+    energy_ev, eps, model, weight1, weight2, *, max_evaluations: int = 60, ftol: float = 1e-8
+) -> PolishResult:
+    """Nonlinear least-squares polish of the poles of ``model``, residues solved linearly inside.
+
+    Parameters
+    ----------
+    energy_ev : array_like
+        Photon energies [eV] of the data.
+    eps : array_like of complex
+        Permittivity samples the model was fitted to.
+    model : PolePairModel
+        Starting model (e.g. a vector fit) with stable poles; its conductor pole at s = 0, if
+        any, stays fixed at 0 (only its residue is fitted).
+    weight1, weight2 : array_like
+        Weights (1/sigma) of the eps1 and eps2 residuals, as in :func:`vector_fit`.
+    max_evaluations : int
+        Largest number of residual evaluations of the nonlinear solver.
+    ftol : float
+        Relative decrease of the misfit below which the solver stops
+        (``scipy.optimize.least_squares`` ftol).
+
+    Returns
+    -------
+    PolishResult
+        The input model itself when the polish does not lower the weighted misfit.
+
+    Notes
+    -----
+    Minimises the weighted misfit of :func:`vector_fit`,
+    ||W (X(a) theta - eps)||^2 over poles a and linear parameters theta = (eps_inf, residues,
+    c_0), by variable projection (Golub & Pereyra [1]_): for fixed poles theta is the linear
+    least-squares solution, so the misfit is a function of the poles alone,
+    r(a) = W X(a) theta(a) - W eps = -(I - P(a)) W eps with P the orthogonal projector onto the
+    columns of W X(a) (thin QR). Its Jacobian is taken in Kaufman's form [2]_,
+    J_k = (I - P) d(W X)/da_k theta (the term that carries d theta/da_k through the
+    pseudo-inverse is dropped; the Gauss-Newton steps stay descent directions), and the poles
+    are moved by ``scipy.optimize.least_squares`` (trust-region reflective, bounds). Parameters:
+    per pair a = -exp(u) + i beta, per real pole a = -exp(u), so Re a < 0 holds by
+    construction; alpha = exp(u) and beta are kept in [1e-3 w_min, 1e3 w_max] (a pair stays a
+    pair, a real pole does not merge with the conductor pole, nothing runs off to infinity).
+    The conductor pole stays at 0. When the linear solution has eps_inf below 1e-3, eps_inf is
+    fixed at 1e-3 and the projection is onto the remaining columns (an active set, so the
+    stability condition eps_inf > 0 holds at every step). The result is re-solved as in
+    :func:`vector_fit` and returned only when it lowers the weighted misfit; a model with a
+    pole outside the box is returned unchanged.
+    Vector fitting converges to a fixed point of its linearised problem, not to a minimum of
+    the misfit, and with noisy data that fixed point can lie well above the minimum the same
+    number of poles allows; the polish moves it to the nearby minimum.
+
+    References
+    ----------
+    .. [1] G. H. Golub, V. Pereyra, "The differentiation of pseudo-inverses and nonlinear least
+       squares problems whose variables separate," SIAM J. Numer. Anal. 10(2), 413-432 (1973)
+       (from memory).
+    .. [2] L. Kaufman, "A variable projection method for solving separable nonlinear least
+       squares problems," BIT 15, 49-57 (1975) (from memory).
+    """
+    from scipy.optimize import least_squares
+
+    w = np.asarray(energy_ev, dtype=float)
+    f = np.asarray(eps, dtype=complex)
+    w1 = np.broadcast_to(np.asarray(weight1, float), w.shape)
+    w2 = np.broadcast_to(np.asarray(weight2, float), w.shape)
+    cond = model.conductor_residue is not None
+    a0 = np.asarray(model.poles, dtype=complex)
+    rss0 = _rss(model, w, f, w1, w2)
+    if a0.size == 0 or not np.all(a0.real < 0):
+        return PolishResult(model, rss0, rss0, 0)
+    pair = a0.imag != 0
+    lo, hi = 1e-3 * float(w.min()), 1e3 * float(w.max())  # box for alpha and beta [eV]
+    s = -1j * w
+
+    def poles_of(p):
+        a = -np.exp(p[: a0.size]).astype(complex)
+        a[pair] = a[pair] + 1j * p[a0.size :]
+        return a
+
+    npair = int(pair.sum())
+    lb = np.concatenate([np.full(a0.size, np.log(lo)), np.full(npair, lo)])
+    ub = np.concatenate([np.full(a0.size, np.log(hi)), np.full(npair, hi)])
+    x0 = np.concatenate([np.log(-a0.real), a0.imag[pair]])
+    if np.any(x0 < lb) or np.any(x0 > ub):  # a pole outside the box: leave the model as it is
+        return PolishResult(model, rss0, rss0, 0)
+    x0 = np.clip(x0, lb + 1e-9 * np.abs(lb), ub - 1e-9 * np.abs(ub))
+    cache = {}
+
+    def solve(p):
+        key = p.tobytes()
+        if key not in cache:
+            a = poles_of(p)
+            am, b = _weighted_system(a, cond, w, f, w1, w2)
+            cn = np.linalg.norm(am, axis=0)
+            cn[cn == 0] = 1.0
+            q, r = np.linalg.qr(am / cn)
+            theta = np.linalg.lstsq(r, q.T @ b, rcond=None)[0] / cn
+            if theta[0] < _EPS_INF_FLOOR:  # keep eps_inf > 0: fix it at the floor (active set)
+                q, r = np.linalg.qr(am[:, 1:] / cn[1:])
+                rest = b - _EPS_INF_FLOOR * am[:, 0]
+                sub = np.linalg.lstsq(r, q.T @ rest, rcond=None)[0] / cn[1:]
+                theta = np.concatenate([[_EPS_INF_FLOOR], sub])
+            res = am @ theta - b
+            res = res - q @ (q.T @ res)  # exact projection, guards round-off
+            cache.clear()
+            cache[key] = (a, q, theta, res)
+        return cache[key]
+
+    def fun(p):
+        return solve(p)[3]
+
+    def jac(p):
+        a, q, theta, _ = solve(p)
+        cols = []
+        k = 1
+        u = np.exp(p[: a0.size])
+        dbeta = []
+        for j, aj in enumerate(a):
+            if pair[j]:
+                c = complex(theta[k], theta[k + 1])
+                k += 2
+                g1, g2 = 1 / (s - aj) ** 2, 1 / (s - np.conj(aj)) ** 2
+                d_re = c * g1 + np.conj(c) * g2  # d eps / d Re a
+                d_im = 1j * c * g1 - 1j * np.conj(c) * g2  # d eps / d Im a
+                cols.append(-u[j] * d_re)
+                dbeta.append(d_im)
+            else:
+                c = theta[k]
+                k += 1
+                cols.append(-u[j] * 2 * c / (s - aj) ** 2)
+        d = np.stack(cols + dbeta, axis=-1)
+        dm = np.vstack([d.real * w1[:, None], d.imag * w2[:, None]])
+        return dm - q @ (q.T @ dm)
+
+    sol = least_squares(
+        fun,
+        x0,
+        jac=jac,
+        bounds=(lb, ub),
+        method="trf",
+        x_scale="jac",
+        max_nfev=max_evaluations,
+        ftol=ftol,
+    )
+    if not np.all(np.isfinite(sol.x)):
+        return PolishResult(model, rss0, rss0, int(sol.nfev))
+    new = _solve_residues(poles_of(sol.x), cond, w, f, w1, w2)
+    rss1 = _rss(new, w, f, w1, w2)
+    if not (rss1 < rss0) or not new.stable:
+        return PolishResult(model, rss0, rss0, int(sol.nfev))
+    return PolishResult(new, rss0, rss1, int(sol.nfev))
