@@ -8,7 +8,7 @@ Public API
 Model and physical terms (``model``)
     PolePairModel, model_from_terms, drude_pairs, lorentz_pairs, debye_pairs, physical_terms
 Fitting (``fit``, ``vfit``, ``order``)
-    fit_pole_pairs -> FitResult; vector_fit, starting_poles; OrderRow
+    fit_pole_pairs -> FitResult; vector_fit, polish_poles, starting_poles; OrderRow
 Passivity (``passivity``)
     certify_passivity, dense_passivity_check, enforce_passivity, pair_is_passive
 Export (``io``)
@@ -36,7 +36,7 @@ from .passivity import (
     enforce_passivity,
     pair_is_passive,
 )
-from .vfit import VectorFitResult, starting_poles, vector_fit
+from .vfit import PolishResult, VectorFitResult, polish_poles, starting_poles, vector_fit
 
 __all__ = [
     "PolePairModel",
@@ -51,6 +51,8 @@ __all__ = [
     "detect_conductor",
     "VectorFitResult",
     "vector_fit",
+    "PolishResult",
+    "polish_poles",
     "starting_poles",
     "OrderRow",
     "PassivityCertificate",
