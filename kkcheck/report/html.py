@@ -787,8 +787,13 @@ def write_html_report(path, context: Mapping) -> Path:
     pathlib.Path
         The written file.
     """
+    return _write_document(path, build_html(context))
+
+
+def _write_document(path, text: str) -> Path:
+    """Create the parent folder and write ``text`` atomically (shared with markdown.py)."""
     from ..io import write_text  # atomic: a half-written report never replaces a good one
 
     out = Path(os.fspath(path))
     out.parent.mkdir(parents=True, exist_ok=True)
-    return write_text(out, build_html(context))
+    return write_text(out, text)

@@ -8,12 +8,20 @@ start Markdown/HTML markup.
 
 from __future__ import annotations
 
-import os
 import re
 from collections.abc import Mapping
 from pathlib import Path
 
-from .html import _cautions, _fmt, _key_numbers, _pair_rows, _range, _source_rows, _verdict_word
+from .html import (
+    _cautions,
+    _fmt,
+    _key_numbers,
+    _pair_rows,
+    _range,
+    _source_rows,
+    _verdict_word,
+    _write_document,
+)
 
 __all__ = ["write_markdown_summary", "build_markdown"]
 
@@ -179,8 +187,4 @@ def write_markdown_summary(path, context: Mapping) -> Path:
     pathlib.Path
         The written file.
     """
-    from ..io import write_text  # atomic: a half-written report never replaces a good one
-
-    out = Path(os.fspath(path))
-    out.parent.mkdir(parents=True, exist_ok=True)
-    return write_text(out, build_markdown(context))
+    return _write_document(path, build_markdown(context))
