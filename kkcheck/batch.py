@@ -356,6 +356,20 @@ def _run_dask(tasks, scheduler, bar: _Bar, client=None) -> list[dict]:
             client.close()
 
 
+#: index.csv columns holding text from file names or messages (guarded against formulas).
+_TEXT_COLUMNS = ("name", "path", "error")
+
+
+def _spreadsheet_safe(value):
+    """Prefix text that a spreadsheet would run as a formula (=, +, -, @) with a quote.
+
+    A file named ``=HYPERLINK(...).csv`` would otherwise become a live formula when a curator
+    opens index.csv (OWASP "CSV injection", common practice).
+    """
+    text = str(value)
+    return "'" + text if text[:1] in ("=", "+", "-", "@") else value
+
+
 def _write_index(rows: Sequence[dict], out: Path, folder: Path, protect=()) -> tuple[Path, Path]:
     from .io import write_text
 
@@ -363,7 +377,7 @@ def _write_index(rows: Sequence[dict], out: Path, folder: Path, protect=()) -> t
     w = csv.DictWriter(buf, fieldnames=INDEX_COLUMNS, lineterminator="\n")
     w.writeheader()
     for r in rows:
-        w.writerow(r)
+        w.writerow({k: _spreadsheet_safe(v) if k in _TEXT_COLUMNS else v for k, v in r.items()})
     csv_path = write_text(out / "index.csv", buf.getvalue(), overwrite_protect=protect)
 
     def link(r) -> str | None:

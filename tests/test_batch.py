@@ -436,3 +436,20 @@ def test_dask_engine_without_scheduler_or_package_is_an_input_error(tmp_path, mo
     monkeypatch.setitem(sys.modules, "dask.distributed", None)  # import fails
     with pytest.raises(InputError, match=r"kkcheck\[dask\]"):
         run_batch(tmp_path / "in", tmp_path / "out", engine="dask", scheduler="tcp://x:1")
+
+
+def test_index_csv_does_not_carry_live_formulas(tmp_path):
+    # a file name starting with "=" must not become a spreadsheet formula in index.csv
+    # (OWASP CSV injection guidance, common practice)
+    from kkcheck.batch import _spreadsheet_safe
+
+    assert _spreadsheet_safe("=HYPERLINK(1)") == "'=HYPERLINK(1)"
+    assert _spreadsheet_safe("@x") == "'@x" and _spreadsheet_safe("-1") == "'-1"
+    assert _spreadsheet_safe("film") == "film" and _spreadsheet_safe(3) == 3
+    folder = tmp_path / "in"
+    folder.mkdir()
+    (folder / "=cmd.csv").write_bytes(b"\x00\x01binary")
+    res = run_batch(folder, tmp_path / "out", jobs=1)
+    text = (tmp_path / "out" / "index.csv").read_text()
+    assert "'=cmd" in text and ",=cmd" not in text
+    assert res.rows[0]["name"] == "=cmd"  # the in-memory row keeps the real name
