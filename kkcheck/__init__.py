@@ -14,7 +14,7 @@ Stages, callable on their own
     kk_test (kkcheck.kk), repair (kkcheck.repair), fit_pole_pairs (kkcheck.rational)
 """
 
-__version__ = "0.1.0"
+from ._version import __version__
 
 __all__ = ["__version__", "check", "fit", "run", "demo"]
 

@@ -39,6 +39,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import InputError
+from .noise import NORMAL_MAD, _chord_residuals, neighbour_noise_sigma
 from .spectrum import Flag, Spectrum
 from .units import eps_to_nk, nk_to_eps, sigma_nk_to_eps
 
@@ -65,7 +66,6 @@ __all__ = [
 ]
 
 #: Factor turning a median absolute deviation into a normal standard deviation, 1/Phi^-1(3/4).
-NORMAL_MAD = 1.482602218505602
 
 #: Sigma inflation of the ``downweight`` policy: a flagged point keeps 1/100 of its weight.
 DOWNWEIGHT_FACTOR = 10.0
@@ -246,61 +246,6 @@ def _source_points(spectrum: Spectrum):
         idx = np.flatnonzero(spectrum.source == s)
         if idx.size:
             yield s, name, idx
-
-
-def _chord_residuals(x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """Deviation of each interior point from the chord of its neighbours, scaled to unit variance.
-
-    d_i = y_i - (a y_{i-1} + b y_{i+1}), a = (x_{i+1} - x_i)/(x_{i+1} - x_{i-1}), b = 1 - a;
-    for white noise of variance s^2, var(d_i) = s^2 (1 + a^2 + b^2), so d_i / sqrt(1 + a^2 + b^2)
-    has the noise's own standard deviation. Returned with NaN at the two ends.
-    """
-    out = np.full(x.size, np.nan)
-    if x.size < 3:
-        return out
-    h = x[2:] - x[:-2]
-    a = (x[2:] - x[1:-1]) / h
-    b = 1.0 - a
-    d = y[1:-1] - (a * y[:-2] + b * y[2:])
-    out[1:-1] = d / np.sqrt(1.0 + a * a + b * b)
-    return out
-
-
-def neighbour_noise_sigma(energy_ev, values) -> float:
-    """Robust standard deviation of white noise in a sampled curve.
-
-    Parameters
-    ----------
-    energy_ev : array_like
-        Strictly increasing axis [eV] (any spacing).
-    values : array_like
-        Samples [any unit].
-
-    Returns
-    -------
-    float
-        Noise standard deviation [unit of ``values``]; NaN with fewer than 5 points.
-
-    Notes
-    -----
-    Each interior point is compared with the chord through its two neighbours,
-    d_i = y_i - (a y_{i-1} + b y_{i+1}) with a = (x_{i+1} - x_i)/(x_{i+1} - x_{i-1}), b = 1 - a,
-    and d_i is divided by sqrt(1 + a^2 + b^2) (its standard deviation in units of the noise).
-    The estimate is 1.4826 * median|d - median(d)| (Hampel 1974). A smooth curve contributes
-    only its curvature times the squared spacing, which is negligible for densely sampled
-    data; spikes and steps hardly move a median.
-
-    References
-    ----------
-    .. [1] F. R. Hampel, J. Am. Stat. Assoc. 69(346), 383-393 (1974).
-    """
-    x = np.asarray(energy_ev, float)
-    y = np.asarray(values, float)
-    d = _chord_residuals(x, y)[1:-1]
-    d = d[np.isfinite(d)]
-    if d.size < 3:
-        return float("nan")
-    return float(NORMAL_MAD * np.median(np.abs(d - np.median(d))))
 
 
 def _running(fn, a: np.ndarray, half: int) -> np.ndarray:

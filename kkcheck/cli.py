@@ -11,7 +11,7 @@ import argparse
 import os
 import sys
 
-from . import __version__
+from ._version import __version__
 from .errors import InputError
 
 __all__ = ["main", "build_parser"]

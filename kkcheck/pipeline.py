@@ -52,7 +52,7 @@ from pathlib import Path
 
 import numpy as np
 
-from . import __version__
+from ._version import __version__
 from .errors import InputError
 from .spectrum import Dataset, Flag, Spectrum
 

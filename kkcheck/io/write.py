@@ -175,7 +175,7 @@ def write_table_csv(
     Python's shortest round-trip repr, NaN as ``nan``. Text cells have ``, ; # " tab CR LF``
     replaced by ``_`` so that the file splits unambiguously.
     """
-    from .. import __version__
+    from .._version import __version__
 
     if axis not in AXIS_UNITS:
         raise ValueError(f"axis must be one of {', '.join(AXIS_UNITS)}, got {axis!r}")

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
+from .._version import __version__
 from ..slab import coherent_slab
 from ..spectrum import Flag
 from ..units import HC_EV_NM

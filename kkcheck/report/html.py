@@ -343,7 +343,7 @@ def library_versions() -> dict[str, str]:
             out[name] = importlib.metadata.version(name)
         except importlib.metadata.PackageNotFoundError:
             if name == "kkcheck":
-                from .. import __version__
+                from .._version import __version__
 
                 out[name] = __version__
             else:
@@ -726,7 +726,7 @@ def build_html(context: Mapping) -> str:
     ctx = context
     version = ctx.get("version")
     if not version:
-        from .. import __version__ as version
+        from .._version import __version__ as version
     title = ctx.get("title") or "kkcheck report"
     sub = []
     if ctx.get("material"):

@@ -49,7 +49,7 @@ def build_markdown(context: Mapping) -> str:
     ctx = context
     version = ctx.get("version")
     if not version:
-        from .. import __version__ as version
+        from .._version import __version__ as version
     kk = ctx.get("kk") or {}
     model = ctx.get("model") or {}
     title = "Optical-constant vetting"
