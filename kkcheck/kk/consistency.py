@@ -69,9 +69,22 @@ from ..spectrum import Flag, Spectrum
 from .basisfit import KKBasisModel, choose_nodes, fit_kk_basis, unsupported_nodes
 from .noise import spectrum_noise
 
-__all__ = ["KKTestOptions", "Region", "KKTestResult", "kk_test", "find_regions"]
+__all__ = ["KKTestOptions", "Region", "KKTestResult", "kk_test", "find_regions", "NOTE_CODES"]
 
 METHOD = "kk-basis-fit"
+
+#: Code of each kind of note in :attr:`KKTestResult.note_codes`, with what the note says.
+NOTE_CODES = {
+    "constant_offset": "a constant offset of eps1 is not detectable (absorbed in eps_inf)",
+    "even_distortion": "smooth even distortions of eps1 look like absorption outside the window",
+    "noise": "how the noise of one source was obtained (estimated in n,k or eps, or floor)",
+    "narrow_window": "the window spans less than a factor 1.5: the test is weak",
+    "gap": "a gap in the data, where eps2 is constrained only by eps1 and a smoothness prior",
+    "drude_columns": "conductor: Drude columns were included",
+    "refit_without_regions": "regions, residuals and model are from the refit without them",
+    "no_refit": "inconsistent over most of the window: no refit was made",
+    "chi2_high": "chi2/dof above the threshold without any region",
+}
 
 
 @dataclass(frozen=True)
@@ -192,6 +205,9 @@ class KKTestResult:
         Cautions (what the window cannot reveal, narrow window, gaps, Drude term used).
     model : KKBasisModel
         The fitted model; ``model.eps(energy_ev)`` evaluates it anywhere.
+    note_codes : tuple of str
+        One short, stable code per note, same length and order as ``notes`` (see
+        :data:`NOTE_CODES`), for readers that act on a note without parsing its text.
     """
 
     method: str
@@ -211,6 +227,11 @@ class KKTestResult:
     verdict: str
     notes: tuple[str, ...]
     model: KKBasisModel
+    note_codes: tuple[str, ...] = ()
+
+    def __post_init__(self):
+        if len(self.note_codes) != len(self.notes):
+            raise ValueError("note_codes must hold one code per note, in the same order")
 
 
 def find_regions(
@@ -349,13 +370,16 @@ def kk_test(
         "smooth even distortions of eps1 (a + b w^2 + c/w^2) are indistinguishable from "
         "absorption outside the window",
     ]
+    codes = ["constant_offset", "even_distortion"]
     notes.extend(noise.notes)
+    codes.extend(["noise"] * len(noise.notes))
     lo, hi = spectrum.range_ev
     if hi / lo < 1.5:
         notes.append(
             f"narrow window ({lo:.4g}-{hi:.4g} eV, ratio {hi / lo:.2f}): outside absorption "
             "can mimic much of eps1; the test is weak"
         )
+        codes.append("narrow_window")
     nodeset = choose_nodes(
         e,
         spectrum.eps.imag,
@@ -370,6 +394,7 @@ def kk_test(
             f"gap in the data {g0:.4g}-{g1:.4g} eV: eps2 there is constrained only by eps1 "
             "and a smoothness prior"
         )
+        codes.append("gap")
     use_drude = opt.drude
     if use_drude == "auto":
         low = e <= e[0] + 0.1 * (e[-1] - e[0])
@@ -377,6 +402,7 @@ def kk_test(
     gam = e[0] * np.array([0.01, 0.03, 0.1, 0.3, 1.0]) if use_drude else np.zeros(0)
     if use_drude:
         notes.append("conductor: Drude columns with fixed damping included (DC pole of eps2)")
+        codes.append("drude_columns")
 
     def run_fit(w, in_gap):
         return fit_kk_basis(
@@ -429,10 +455,12 @@ def kk_test(
                     "regions, residuals and model are from a refit without the points first "
                     "found inconsistent; chi2/dof is of the fit to all points"
                 )
+                codes.append("refit_without_regions")
         else:
             notes.append(
                 "inconsistent over most of the window: no refit without the regions was made"
             )
+            codes.append("no_refit")
     n_res = zc.size
     verdict = "inconsistent" if regions or chi2_dof > opt.chi2_threshold else "consistent"
     if chi2_dof > opt.chi2_threshold and not regions:
@@ -440,6 +468,7 @@ def kk_test(
             f"chi2/dof = {chi2_dof:.3g} above {opt.chi2_threshold}: inconsistent everywhere or "
             "noise underestimated"
         )
+        codes.append("chi2_high")
     return KKTestResult(
         method=METHOD,
         energy_ev=np.array(e),
@@ -458,4 +487,5 @@ def kk_test(
         verdict=verdict,
         notes=tuple(notes),
         model=model,
+        note_codes=tuple(codes),
     )
