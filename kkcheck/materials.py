@@ -6,11 +6,15 @@ convention (eps2 >= 0 for passive media). Parameters in eV unless stated.
 References
 ----------
 .. [1] A. D. Rakić, A. B. Djurišić, J. M. Elazar, M. L. Majewski, "Optical properties of
-   metallic films for vertical-cavity optoelectronic devices," Appl. Opt. 37, 5271 (1998).
+   metallic films for vertical-cavity optoelectronic devices," Appl. Opt. 37(22), 5271-5283
+   (1998); see docs/references.md [Rakic1998].
 .. [2] G. E. Jellison Jr., F. A. Modine, "Parameterization of the optical functions of amorphous
-   materials in the interband region," Appl. Phys. Lett. 69, 371 (1996); erratum 69, 2137.
+   materials in the interband region," Appl. Phys. Lett. 69(3), 371-373 (1996); erratum
+   Appl. Phys. Lett. 69, 2137 (1996) (volume and pages from memory); see docs/references.md
+   [Jellison1996].
 .. [3] I. H. Malitson, "Interspecimen comparison of the refractive index of fused silica,"
-   J. Opt. Soc. Am. 55, 1205 (1965).
+   J. Opt. Soc. Am. 55(10), 1205-1208 (1965) (title from memory); see docs/references.md
+   [Malitson1965].
 """
 
 from __future__ import annotations
@@ -61,8 +65,11 @@ def tauc_lorentz(energy_ev, A: float, E0: float, C: float, Eg: float, eps_inf: f
     Notes
     -----
     eps2 = A E0 C (E - Eg)^2 / [((E^2 - E0^2)^2 + C^2 E^2) E] for E > Eg, else 0.
-    eps1 is the closed form of the erratum (symbols as in ../shared/REFERENCES.md item 9),
-    valid for E != Eg; at E == Eg the log term vanishes in the limit and is set to 0.
+    eps1 is the closed form of the erratum of Jellison & Modine (Appl. Phys. Lett. 69,
+    2137 (1996); equation number not recorded), with a = sqrt(4 E0^2 - C^2),
+    g2 = E0^2 - C^2/2 and z4 = (E^2 - g2)^2 + a^2 C^2 / 4 as in docs/references.md
+    [Jellison1996]. It is valid for E != Eg; at E == Eg the log term vanishes in the limit
+    and is set to 0.
     """
     E = np.asarray(energy_ev, dtype=float)
     a = np.sqrt(4 * E0**2 - C**2)
@@ -113,8 +120,9 @@ def sellmeier_silica(energy_ev) -> np.ndarray:
     return n2.astype(complex)
 
 
-#: Rakić 1998 Lorentz–Drude parameters for gold: wp, f0, Gamma0, [(f_j, Gamma_j, w_j)] in eV
-#: (as transcribed in public code; ../shared/REFERENCES.md item 9).
+#: Rakić 1998 Lorentz–Drude parameters for gold: wp, f0, Gamma0, [(f_j, Gamma_j, w_j)] in eV,
+#: from Rakić et al., Appl. Opt. 37(22), 5271-5283 (1998) as transcribed in public code
+#: (four independent transcriptions agree; see docs/references.md [Rakic1998]).
 RAKIC_AU = (
     9.03,
     0.760,
@@ -127,7 +135,8 @@ RAKIC_AU = (
         (4.384, 2.214, 13.32),
     ),
 )
-#: Rakić 1998 Lorentz–Drude parameters for silver (same layout as :data:`RAKIC_AU`).
+#: Rakić 1998 Lorentz–Drude parameters for silver (same layout as :data:`RAKIC_AU`), from
+#: Rakić et al., Appl. Opt. 37(22), 5271-5283 (1998) as transcribed in one public code listing.
 RAKIC_AG = (
     9.01,
     0.845,
@@ -146,6 +155,8 @@ def rakic_ld(energy_ev, params=RAKIC_AU) -> np.ndarray:
     """Lorentz–Drude model of Rakić et al. (1998), physics convention.
 
     eps = 1 - f0 wp^2 / (w (w + i Gamma0)) + sum_j f_j wp^2 / (w_j^2 - w^2 - i w Gamma_j).
+    This is the form of the public code transcriptions of Rakić et al. (1998); the paper itself
+    is recalled (from memory) to print the conjugate signs, (w - i Gamma0) and + i w Gamma_j.
     """
     wp, f0, g0, osc = params
     w = np.asarray(energy_ev, dtype=float)
