@@ -12,13 +12,24 @@ every energy, not only at the nodes). For eps data the problem is linear in
 (eps_inf, A, D) and is solved as a bounded linear least-squares problem
 (Lawson–Hanson NNLS, :func:`scipy.optimize.nnls`), rows weighted by the per-point noise.
 
-Nodes. Inside the measured window the nodes are the data's own energies (so a feature a few
-data points wide, such as a 10 cm^-1 phonon sampled at 1 cm^-1, is resolved), thinned only
-where eps2 is locally linear within a fraction of its noise; gaps in the data receive nodes
-at the neighbouring spacing. Outside the window the nodes continue with a spacing that grows
-geometrically (ratio ``growth``) from the edge spacing down to ``low_factor`` x the lowest and
-up to ``high_factor`` x the highest measured energy (defaults 0.1 and 10). These outside nodes
-are constrained only through eps1: they stand for absorption the window does not see.
+Nodes (the data's own energies, thinned where eps2 is straight, continued geometrically
+outside the window, tied extra nodes where eps2 is strongly curved) are chosen by
+:mod:`kkcheck.kk.basisnodes`; its public names are re-exported here.
+
+Priors (pseudo-observation rows of :func:`fit_kk_basis`; s_i is the eps2 noise of the weighted
+data interpolated to node i, the median noise outside the window):
+
+* ties: (A_i - sum_j c_j A_j) / t_i = 0 +- 1 at each tied node, c_j the cubic Lagrange
+  weights of the two nearest untied nodes on either side and t_i the tolerance of
+  :func:`tie_tolerance` (eps2 noise at the node and the cubic's estimated error, in
+  quadrature), computed from the eps2 data (weight > 0) interpolated to the untied nodes.
+  Tying within the noise alone was wrong for peaks sampled with 3-4 points per FWHM: the
+  cubic through the neighbours then misses eps2 between the points by up to ~100 noise units,
+  so the tie forced a wrong shape whose KK partner missed eps1 (chi2/dof 10-200 on clean data);
+* gaps: (A_{i-1} - 2 A_i + A_{i+1}) / s_i = 0 +- 1 at each node inside a data gap (eps2 bends
+  no more than its noise per node spacing), so eps2 across a gap is the smoothest one that
+  eps1 allows;
+* curvature penalty (optional): lambda * sum_i (A_{i-1} - 2 A_i + A_{i+1})^2 / s_i^2.
 
 Limits (what no finite window can reveal): a constant offset of eps1 is indistinguishable
 from eps_inf; absorption far outside the window acts on eps1 in the window only through a
@@ -42,6 +53,7 @@ import numpy as np
 from scipy.optimize import lsq_linear, nnls
 
 from ..spectrum import readonly_array as _ro
+from .basisnodes import NodeSet, choose_nodes, tie_stencils, tie_tolerance, unsupported_nodes
 from .kernels import pl_kk_matrix
 
 __all__ = [
@@ -135,30 +147,46 @@ class KKBasisModel:
         s2 = np.sqrt(np.sum((b2 @ self.cov_sqrt) ** 2, axis=1))
         return s1, s2
 
+    def refit(
+        self, energy_ev, eps, sigma_eps1, sigma_eps2, weights, *, smoothing: float = 0.0
+    ) -> BasisFit:
+        """Fit the same basis again to data with new per-point weights.
 
-@dataclass(frozen=True)
-class NodeSet:
-    """Nodes of the eps2 basis chosen by :func:`choose_nodes`.
+        Parameters
+        ----------
+        energy_ev, eps, sigma_eps1, sigma_eps2 : array_like, shape (M,)
+            The data, as for :func:`fit_kk_basis`.
+        weights : array_like, shape (M,)
+            Per-point weights >= 0 multiplying the inverse variance (0 drops the point).
+        smoothing : float
+            Curvature penalty weight (:func:`fit_kk_basis`), 0 = off.
 
-    Attributes
-    ----------
-    nodes_ev : numpy.ndarray
-        Strictly increasing node energies [eV].
-    tied : numpy.ndarray
-        True for nodes added between data points where eps2 is strongly curved; the fit ties
-        eps2 there to the cubic through the neighbouring data nodes, within the noise and the
-        cubic's own estimated interpolation error (:func:`tie_tolerance`).
-    gaps_ev : tuple of (float, float)
-        Gaps found in the data spacing, (from_ev, to_ev).
-    in_gap : numpy.ndarray
-        True for nodes inserted inside a gap; the fit holds their second differences to the
-        noise level (a smoothness prior, see :func:`fit_kk_basis`).
-    """
+        Returns
+        -------
+        BasisFit
 
-    nodes_ev: np.ndarray
-    tied: np.ndarray
-    gaps_ev: tuple[tuple[float, float], ...]
-    in_gap: np.ndarray
+        Notes
+        -----
+        Same nodes, ties and Drude damping energies as this model; the gap prior is applied to
+        this model's ``in_gap`` nodes plus those left without a weighted data point between
+        their neighbours (:func:`unsupported_nodes`), so a dropped run of points is bridged
+        like a gap instead of leaving free amplitudes that no data constrain.
+        """
+        e = np.asarray(energy_ev, float)
+        wt = np.asarray(weights, float)
+        in_gap = self.in_gap | unsupported_nodes(self.nodes_ev, e[wt > 0], e)
+        return fit_kk_basis(
+            e,
+            eps,
+            sigma_eps1,
+            sigma_eps2,
+            self.nodes_ev,
+            tied=self.tied,
+            in_gap=in_gap,
+            drude_gamma_ev=self.drude_gamma_ev,
+            weights=wt,
+            smoothing=smoothing,
+        )
 
 
 @dataclass(frozen=True)
@@ -233,23 +261,6 @@ def _hat_matrix(x: np.ndarray, w: np.ndarray) -> np.ndarray:
     return t
 
 
-def unsupported_nodes(nodes_ev, kept_ev, all_ev) -> np.ndarray:
-    """Nodes inside the data window with no kept data point between their neighbour nodes.
-
-    Such nodes (e.g. after points were given zero weight) are constrained only through eps1;
-    :func:`fit_kk_basis` should treat them like gap nodes (``in_gap``).
-    """
-    nodes = np.asarray(nodes_ev, float)
-    kept = np.sort(np.asarray(kept_ev, float))
-    all_ev = np.asarray(all_ev, float)
-    prev = np.concatenate([[nodes[0]], nodes[:-1]])
-    nxt = np.concatenate([nodes[1:], [nodes[-1]]])
-    lo = np.searchsorted(kept, prev, side="left")
-    hi = np.searchsorted(kept, nxt, side="right")
-    inside = (nodes >= all_ev.min()) & (nodes <= all_ev.max())
-    return inside & (hi <= lo)
-
-
 def _solve_nonneg(a: np.ndarray, y: np.ndarray, free_first: bool) -> tuple[np.ndarray, str]:
     """min ||a x - y|| with x >= 0 (x[0] free when ``free_first``).
 
@@ -282,254 +293,15 @@ def _solve_nonneg(a: np.ndarray, y: np.ndarray, free_first: bool) -> tuple[np.nd
     return x, "nnls converged"
 
 
-def _lagrange_weights(xs: np.ndarray, x0: float) -> np.ndarray:
-    """Weights c with sum_j c_j f(xs_j) = value at x0 of the polynomial through (xs, f(xs))."""
-    c = np.ones(xs.size)
-    for a in range(xs.size):
-        for b in range(xs.size):
-            if a != b:
-                c[a] *= (x0 - xs[b]) / (xs[a] - xs[b])
-    return c
-
-
-def _tie_stencils(nodes: np.ndarray, tied: np.ndarray):
-    """Per tied node: (i, nb, c, wider) with the cubic stencil and the two quartic ones.
-
-    ``nb`` are the (up to) two nearest untied nodes on either side of node i, ``c`` their
-    cubic Lagrange weights at x_i, and ``wider`` a list of (nb5, c5) for the quartics that add
-    the next untied node on the left or on the right (when there is one).
-    """
-    free_idx = np.nonzero(~tied)[0]
-    out = []
-    for i in np.nonzero(tied)[0]:
-        pos = int(np.searchsorted(free_idx, i))
-        lo, hi = max(0, pos - 2), min(free_idx.size, pos + 2)
-        nb = free_idx[lo:hi]
-        c = _lagrange_weights(nodes[nb], nodes[i])
-        wider = []
-        for lo5, hi5 in ((lo - 1, hi), (lo, hi + 1)):
-            if lo5 >= 0 and hi5 <= free_idx.size and hi5 - lo5 == nb.size + 1:
-                nb5 = free_idx[lo5:hi5]
-                wider.append((nb5, _lagrange_weights(nodes[nb5], nodes[i])))
-        out.append((i, nb, c, wider))
-    return out
-
-
-def tie_tolerance(nodes_ev, tied, eps2_nodes, s_node) -> np.ndarray:
-    """Tolerance of each tie: the noise and the estimated error of the cubic, in quadrature.
-
-    Parameters
-    ----------
-    nodes_ev : array_like
-        Node energies [eV].
-    tied : array_like of bool
-        Tied nodes (:class:`NodeSet`).
-    eps2_nodes : array_like
-        eps2 data interpolated to the nodes (only the untied ones are used).
-    s_node : array_like
-        eps2 noise at the nodes.
-
-    Returns
-    -------
-    numpy.ndarray
-        t_i for every node (NaN at untied nodes).
-
-    Notes
-    -----
-    t_i = sqrt(s_i^2 + d_i^2), d_i = max_q |P5_q(x_i) - P3(x_i)|, with P3 the cubic through the
-    two nearest untied nodes on either side and P5_q the two quartics that add one more
-    untied node on the left or on the right: the embedded estimate of the cubic's own
-    interpolation error (its next-order term), as in embedded Runge–Kutta error control
-    [1]_. Where eps2 is smooth on the data spacing d_i is about the noise and the tie is
-    tight (the extra nodes then only let eps2 bend like a cubic between data points); where a
-    peak is sampled by only ~3-4 points per FWHM the cubic is wrong by up to 10^2 noise
-    units, d_i says so, and eps2 between the data points is fixed by eps1 through the KK
-    relation instead of by the cubic. Limits: d_i is an estimate; it can undershoot where
-    both interpolants err alike (e.g. exactly symmetric stencils around an extremum), and
-    it includes the data noise amplified by the stencil (~1-2 s_i), so ties are never
-    tighter than the noise.
-
-    References
-    ----------
-    .. [1] E. Fehlberg, "Low-order classical Runge–Kutta formulas with stepsize control,"
-       NASA TR R-315 (1969) (error of a lower-order formula from a higher-order one).
-    """
-    nodes = np.asarray(nodes_ev, float)
-    tied = np.asarray(tied, bool)
-    y = np.asarray(eps2_nodes, float)
-    s = np.asarray(s_node, float)
-    t = np.full(nodes.size, np.nan)
-    for i, nb, c, wider in _tie_stencils(nodes, tied):
-        p3 = c @ y[nb]
-        d = max((abs(c5 @ y[nb5] - p3) for nb5, c5 in wider), default=0.0)
-        t[i] = np.hypot(s[i], d)
-    return t
-
-
 def _tie_rows(nodes: np.ndarray, tied: np.ndarray, t_node: np.ndarray, p_len: int):
     """Pseudo-observation rows tying each tied node to the cubic through its untied neighbours."""
     rows = []
-    for i, nb, c, _ in _tie_stencils(nodes, tied):
+    for i, nb, c, _ in tie_stencils(nodes, tied):
         row = np.zeros(p_len)
         row[1 + i] = 1.0 / t_node[i]
         row[1 + nb] -= c / t_node[i]
         rows.append(row)
     return np.array(rows)
-
-
-def _outside_nodes(edge: float, h0: float, stop: float, growth: float) -> np.ndarray:
-    """Nodes from ``edge`` towards ``stop`` (exclusive of edge), spacing h0 * growth^k."""
-    out = []
-    pos = edge
-    h = h0
-    sign = 1.0 if stop > edge else -1.0
-    while True:
-        h *= growth
-        pos = pos + sign * h
-        if (pos - stop) * sign >= 0:
-            out.append(stop)
-            break
-        out.append(pos)
-    return np.array(out)
-
-
-def choose_nodes(
-    energy_ev,
-    eps2,
-    sigma_eps2,
-    *,
-    low_factor: float = 0.1,
-    high_factor: float = 10.0,
-    growth: float = 1.4,
-    thin_tol: float = 0.3,
-    max_step_rel: float = 0.02,
-    gap_factor: float = 6.0,
-    refine_tol: float = 1.0,
-    max_refine: int = 2,
-) -> NodeSet:
-    """Node energies for the eps2 basis, following the data's own density.
-
-    Parameters
-    ----------
-    energy_ev : array_like
-        Data energies [eV], non-decreasing (duplicates allowed).
-    eps2, sigma_eps2 : array_like
-        eps2 data and its noise at those energies (used for thinning only).
-    low_factor, high_factor : float
-        Outside nodes reach ``low_factor * min(energy_ev)`` and ``high_factor * max(energy_ev)``.
-    growth : float
-        Ratio of successive outside spacings (> 1).
-    thin_tol : float
-        A data point is dropped as a node only when eps2 (smoothed over 5 points) deviates from
-        the straight line between the kept neighbours by less than ``thin_tol`` x its noise at
-        every skipped point.
-    max_step_rel : float
-        No node spacing inside the window exceeds ``max_step_rel`` x the node energy.
-    gap_factor : float
-        A data spacing larger than ``gap_factor`` x the median of the 10 spacings on either
-        side is a gap; nodes are inserted there at the neighbouring spacing (at most 50).
-
-    refine_tol, max_refine : float, int
-        An interval between kept data nodes whose estimated piecewise-linear interpolation
-        error h^2 |eps2''| / 8 exceeds ``refine_tol`` x the noise is split into up to
-        ``max_refine`` parts (default 2, i.e. at most 2 extra nodes per data interval); the
-        added nodes are *tied* (see :func:`fit_kk_basis`). The curvature is the larger of the
-        second divided differences (over the kept nodes) at the interval's ends, so the
-        interval across the inflection point of a coarsely sampled peak is split too (the
-        smaller one is ~0 there). Noise alone triggers a split only at ~3 sigma (the noise of
-        h^2 |d2| / 8 is ~0.3 s); the tie tolerance is then about the noise, so such splits
-        cost little.
-
-    Notes
-    -----
-    Why at most 2 extra nodes per interval: with 2, eps2 between two data points may take any
-    3-piece shape (as many free values per interval as a cubic has), which was enough for
-    Lorentz peaks sampled with ~3 points per FWHM (chi2/dof 0.7-1.7 with the true noise,
-    against up to ~200 with the cubic held to the noise); 1 was not (chi2/dof 4-15). More
-    would let a single-point spike in eps2 hide as a line narrower than the data spacing,
-    whose KK partner at the neighbouring points is too small to see (a 60-sigma spike then
-    left |z| < 4). So the test resolves eps2 features down to ~3 points per FWHM and treats
-    narrower ones as inconsistent with eps1 -- the intended resolution limit.
-
-    Returns
-    -------
-    NodeSet
-    """
-    e_all = np.asarray(energy_ev, dtype=float)
-    e, inv = np.unique(e_all, return_inverse=True)
-    cnt = np.bincount(inv)
-    y = np.bincount(inv, weights=np.asarray(eps2, float)) / cnt
-    s = np.sqrt(np.bincount(inv, weights=np.asarray(sigma_eps2, float) ** 2) / cnt)
-    m = e.size
-    if m < 3:
-        raise ValueError("need at least 3 distinct energies")
-    # light smoothing for the thinning test only
-    ker = np.ones(5) / 5
-    ys = np.convolve(np.pad(y, 2, mode="edge"), ker, mode="valid")
-    keep = [0]
-    i = 0
-    while i < m - 1:
-        j = i + 1
-        while j + 1 < m:
-            cand = j + 1
-            if e[cand] - e[i] > max_step_rel * e[i]:
-                break
-            seg = slice(i + 1, cand)
-            lin = ys[i] + (ys[cand] - ys[i]) * (e[seg] - e[i]) / (e[cand] - e[i])
-            if np.any(np.abs(ys[seg] - lin) > thin_tol * s[seg]):
-                break
-            j = cand
-        keep.append(j)
-        i = j
-    keep = np.array(keep)
-    inner = e[keep]
-    # refinement where eps2 is too curved for a PL interpolant at the data spacing
-    ek, yk = e[keep], y[keep]
-    d2 = np.zeros(keep.size)
-    d2[1:-1] = (
-        2
-        * ((yk[2:] - yk[1:-1]) / (ek[2:] - ek[1:-1]) - (yk[1:-1] - yk[:-2]) / (ek[1:-1] - ek[:-2]))
-        / (ek[2:] - ek[:-2])
-    )
-    tied = []
-    for q, (a, b) in enumerate(zip(keep[:-1], keep[1:], strict=True)):
-        h = e[b] - e[a]
-        curv = max(abs(d2[q]), abs(d2[q + 1]))
-        err = h * h * curv / 8
-        tol = refine_tol * min(s[a], s[b])
-        if err > tol:
-            n_sub = int(min(max_refine, np.ceil(np.sqrt(err / tol))))
-            tied.append(np.linspace(e[a], e[b], n_sub + 1)[1:-1])
-    tied = np.concatenate(tied) if tied else np.zeros(0)
-    # gaps in the data spacing
-    h = np.diff(e)
-    gaps = []
-    extra = []
-    for k in range(h.size):
-        lo, hi = max(0, k - 10), min(h.size, k + 11)
-        neigh = np.concatenate([h[lo:k], h[k + 1 : hi]])
-        if neigh.size == 0:
-            continue
-        href = float(np.median(neigh))
-        if h[k] > gap_factor * href:
-            gaps.append((float(e[k]), float(e[k + 1])))
-            n_ins = int(min(50, np.ceil(h[k] / href) - 1))
-            extra.append(np.linspace(e[k], e[k + 1], n_ins + 2)[1:-1])
-    if extra:
-        inner = np.union1d(inner, np.concatenate(extra))
-    h_lo = inner[1] - inner[0]
-    h_hi = inner[-1] - inner[-2]
-    low = _outside_nodes(inner[0], h_lo, low_factor * inner[0], growth)[::-1]
-    high = _outside_nodes(inner[-1], h_hi, high_factor * inner[-1], growth)
-    nodes = np.concatenate([low, inner, high])
-    all_nodes = np.union1d(nodes, tied)
-    gap_nodes = np.concatenate(extra) if extra else np.zeros(0)
-    return NodeSet(
-        nodes_ev=all_nodes,
-        tied=np.isin(all_nodes, tied),
-        gaps_ev=tuple(gaps),
-        in_gap=np.isin(all_nodes, gap_nodes),
-    )
 
 
 def fit_kk_basis(
@@ -561,24 +333,15 @@ def fit_kk_basis(
     drude_gamma_ev : sequence of float
         Damping energies of optional Drude columns [eV] (empty: no Drude term).
     tied : array_like of bool, optional
-        Nodes (see :class:`NodeSet`) whose amplitude is tied by a pseudo-observation
-        (A_i - sum_j c_j A_j) / t_i = 0 +- 1, c_j the cubic Lagrange weights of the two nearest
-        untied nodes on either side and t_i the tolerance of :func:`tie_tolerance` (eps2 noise
-        at the node and the cubic's estimated error, in quadrature), computed here from the
-        eps2 data (weight > 0) interpolated to the untied nodes. Tying within the noise alone
-        was wrong for peaks sampled with 3-4 points per FWHM: the cubic through the
-        neighbours then misses eps2 between the points by up to ~100 noise units, so the tie
-        forced a wrong shape whose KK partner missed eps1 (chi2/dof 10-200 on clean data).
+        Nodes (see :class:`NodeSet`) whose amplitude is tied to the cubic through its untied
+        neighbours, within :func:`tie_tolerance` (module docstring, "Priors").
     in_gap : array_like of bool, optional
-        Nodes inside data gaps: each gets the prior (A_{i-1} - 2 A_i + A_{i+1}) / s_i = 0 +- 1
-        (eps2 bends no more than its noise per node spacing), so eps2 across a gap is the
-        smoothest one that eps1 allows.
+        Nodes inside data gaps, held to the gap smoothness prior (module docstring, "Priors").
     weights : array_like, shape (M,), optional
         Extra per-point weights >= 0 multiplying the inverse variance (0 drops the point).
     smoothing : float
-        Weight lambda of the curvature penalty lambda * sum_i (A_{i-1} - 2 A_i + A_{i+1})^2 /
-        s_i^2, with s_i the eps2 noise interpolated to node i (the median noise outside the
-        window). 0 (default) switches it off.
+        Weight lambda of the curvature penalty (module docstring, "Priors"); 0 (default)
+        switches it off.
     eps_inf_nonnegative : bool
         Constrain eps_inf >= 0 (default: free).
 
@@ -604,16 +367,53 @@ def fit_kk_basis(
         raise ValueError("sigma_eps1 and sigma_eps2 must be > 0")
     nodes = np.asarray(nodes_ev, float)
     gam = np.asarray(drude_gamma_ev, float)
-    b1, b2 = design_matrices(nodes, gam, w_e[use])
-    r1 = np.sqrt(wt[use]) / s1[use]
-    r2 = np.sqrt(wt[use]) / s2[use]
-    a_data = np.vstack([b1 * r1[:, None], b2 * r2[:, None]])
-    y_data = np.concatenate([eps.real[use] * r1, eps.imag[use] * r2])
+    a_data, y_data = _data_rows(nodes, gam, w_e[use], eps[use], s1[use], s2[use], wt[use])
     n_nodes = nodes.size
     p_len = 1 + n_nodes + gam.size
-    order = np.argsort(w_e[use], kind="stable")
-    s_node = np.interp(nodes, w_e[use][order], s2[use][order], left=np.nan, right=np.nan)
-    s_node = np.where(np.isfinite(s_node), s_node, np.median(s2[use]))
+    pen_rows = _prior_rows(nodes, p_len, w_e[use], eps.imag[use], s2[use], smoothing, tied, in_gap)
+    solved = _solve_scaled(a_data, y_data, pen_rows, eps_inf_nonnegative)
+    p = solved.xs / solved.norms
+    resid = y_data - a_data @ p
+    chi2 = float(resid @ resid)
+    n_free, n_eff, cov_sqrt = _covariance(solved, p_len, eps_inf_nonnegative)
+    dof = max(1.0, y_data.size - n_eff)
+    cov_sqrt = cov_sqrt * np.sqrt(max(1.0, chi2 / dof))
+    model = KKBasisModel(
+        nodes_ev=nodes,
+        amplitudes=p[1 : 1 + n_nodes],
+        eps_inf=p[0],
+        drude_wp2_ev2=p[1 + n_nodes :],
+        drude_gamma_ev=gam,
+        window_ev=(float(w_e[use].min()), float(w_e[use].max())),
+        cov_sqrt=cov_sqrt,
+        tied=tied,
+        in_gap=in_gap,
+    )
+    return BasisFit(
+        model=model, chi2=chi2, dof=dof, n_free=n_free, n_effective=n_eff, status=solved.status
+    )
+
+
+def _data_rows(nodes, gam, e_use, eps_use, s1_use, s2_use, wt_use):
+    """Weighted design rows (eps1 rows, then eps2 rows) and right-hand side of the data."""
+    b1, b2 = design_matrices(nodes, gam, e_use)
+    r1 = np.sqrt(wt_use) / s1_use
+    r2 = np.sqrt(wt_use) / s2_use
+    a_data = np.vstack([b1 * r1[:, None], b2 * r2[:, None]])
+    y_data = np.concatenate([eps_use.real * r1, eps_use.imag * r2])
+    return a_data, y_data
+
+
+def _prior_rows(nodes, p_len, e_use, eps2_use, s2_use, smoothing, tied, in_gap) -> list:
+    """Pseudo-observation rows of the priors (curvature penalty, ties, gap smoothness).
+
+    ``e_use``, ``eps2_use``, ``s2_use``: energies, eps2 and its noise of the weighted data
+    points (any order); the priors are described in the module docstring.
+    """
+    n_nodes = nodes.size
+    order = np.argsort(e_use, kind="stable")
+    s_node = np.interp(nodes, e_use[order], s2_use[order], left=np.nan, right=np.nan)
+    s_node = np.where(np.isfinite(s_node), s_node, np.median(s2_use))
     pen_rows = []
     if smoothing > 0:
         pen = np.zeros((n_nodes - 2, p_len))
@@ -625,7 +425,7 @@ def fit_kk_basis(
         pen_rows.append(pen)
     if tied is not None and np.any(tied):
         tied_b = np.asarray(tied, bool)
-        y_node = np.interp(nodes, w_e[use][order], eps.imag[use][order])
+        y_node = np.interp(nodes, e_use[order], eps2_use[order])
         t_node = tie_tolerance(nodes, tied_b, y_node, s_node)
         pen_rows.append(_tie_rows(nodes, tied_b, t_node, p_len))
     if in_gap is not None and np.any(in_gap):
@@ -637,15 +437,38 @@ def fit_kk_basis(
         pen[r, 1 + gi] = -2.0 / s_node[gi]
         pen[r, 2 + gi] = 1.0 / s_node[gi]
         pen_rows.append(pen)
+    return pen_rows
+
+
+@dataclass(frozen=True)
+class _Solved:
+    """The scaled bounded solve of :func:`_solve_scaled` (internal to this module).
+
+    ``xs`` is the solution in scaled columns (parameters = xs / norms); ``a_sc`` the scaled
+    design (the R factor when a QR reduction was made, then ``q`` is its Q, else None);
+    ``n_data_rows`` and ``n_pen_rows`` split the rows of the unreduced design.
+    """
+
+    xs: np.ndarray
+    norms: np.ndarray
+    a_sc: np.ndarray
+    q: np.ndarray | None
+    n_data_rows: int
+    n_pen_rows: int
+    status: str
+
+
+def _solve_scaled(a_data, y_data, pen_rows, eps_inf_nonnegative: bool) -> _Solved:
+    """Prior rows appended, columns scaled to unit norm, rows reduced by QR, then the solve."""
     a_mat, y_vec = a_data, y_data
     if pen_rows:
         pen = np.vstack(pen_rows)
         a_mat = np.vstack([a_data, pen])
         y_vec = np.concatenate([y_data, np.zeros(pen.shape[0])])
+    n_data_rows = a_data.shape[0]
     norms = np.linalg.norm(a_mat, axis=0)
     norms[norms == 0] = 1.0
     a_sc = a_mat / norms
-    n_data_rows = a_data.shape[0]
     q = None
     if a_sc.shape[0] > 2 * a_sc.shape[1]:
         # same minimiser with far fewer rows: ||a x - y||^2 = ||r x - q^T y||^2 + const, and
@@ -653,44 +476,37 @@ def fit_kk_basis(
         q, r = np.linalg.qr(a_sc)
         a_sc, y_vec = r, q.T @ y_vec
     xs, status = _solve_nonneg(a_sc, y_vec, free_first=not eps_inf_nonnegative)
-    p = xs / norms
-    resid = y_data - a_data @ p
-    chi2 = float(resid @ resid)
+    n_pen = a_mat.shape[0] - n_data_rows
+    return _Solved(xs, norms, a_sc, q, n_data_rows, n_pen, status)
+
+
+def _covariance(solved: _Solved, p_len: int, eps_inf_nonnegative: bool):
+    """(n_free, n_effective, cov_sqrt before the chi2/dof scaling) of a solve.
+
+    The covariance of the free parameters comes from the SVD of the scaled design (incl. the
+    prior rows) restricted to them; the effective number of parameters is the hat-matrix
+    trace over the data rows, rank minus the leverage of the prior rows.
+    """
+    xs, norms, a_sc, q = solved.xs, solved.norms, solved.a_sc, solved.q
     at_bound = np.zeros(p_len, bool)
     at_bound[1:] = xs[1:] <= 0
     if eps_inf_nonnegative:
         at_bound[0] = xs[0] <= 0
     free = ~at_bound
     n_free = int(free.sum())
-    # covariance of the free parameters from the (scaled) design incl. the penalty rows
     jf = a_sc[:, free]
     u, sv, vt = np.linalg.svd(jf, full_matrices=False)
     keep = sv > 1e-10 * sv[0]
-    # effective parameters: hat-matrix trace over the data rows = rank - prior-row leverage
     u_r = u[:, keep]
-    n_pen = a_mat.shape[0] - n_data_rows
-    if n_pen == 0:
+    n_data_rows = solved.n_data_rows
+    if solved.n_pen_rows == 0:
         lev_pen = 0.0
     elif q is not None:
         lev_pen = float(np.sum((q[n_data_rows:] @ u_r) ** 2))
     else:
         lev_pen = float(np.sum(u_r[n_data_rows:] ** 2))
     n_eff = float(np.count_nonzero(keep)) - lev_pen
-    dof = max(1.0, y_data.size - n_eff)
     lf = (vt[keep].T / sv[keep]) / norms[free][:, None]
     cov_sqrt = np.zeros((p_len, lf.shape[1]))
-    cov_sqrt[free] = lf * np.sqrt(max(1.0, chi2 / dof))
-    model = KKBasisModel(
-        nodes_ev=nodes,
-        amplitudes=p[1 : 1 + n_nodes],
-        eps_inf=p[0],
-        drude_wp2_ev2=p[1 + n_nodes :],
-        drude_gamma_ev=gam,
-        window_ev=(float(w_e[use].min()), float(w_e[use].max())),
-        cov_sqrt=cov_sqrt,
-        tied=np.zeros(n_nodes, bool) if tied is None else np.asarray(tied, bool),
-        in_gap=np.zeros(n_nodes, bool) if in_gap is None else np.asarray(in_gap, bool),
-    )
-    return BasisFit(
-        model=model, chi2=chi2, dof=dof, n_free=n_free, n_effective=n_eff, status=status
-    )
+    cov_sqrt[free] = lf
+    return n_free, n_eff, cov_sqrt

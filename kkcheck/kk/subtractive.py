@@ -23,7 +23,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import InputError
-from .transform import _check_axis, _check_targets, eps2_to_eps1
+from .checks import check_axis, check_targets
+from .transform import eps2_to_eps1
 
 __all__ = [
     "SubtractiveResult",
@@ -164,8 +165,8 @@ def subtractive_result(
     dc_sigma_ev=0.0,
 ) -> SubtractiveResult:
     """As :func:`subtractive_eps1`, returning the full :class:`SubtractiveResult`."""
-    x, y = _check_axis(energy_ev, eps2, "eps2")
-    w = _check_targets(at_ev, x)
+    x, y = check_axis(energy_ev, eps2, "eps2")
+    w = check_targets(at_ev, x)
     a, v = _check_anchors(x, anchors_ev, anchors_eps1)
     plain = eps2_to_eps1(x, y, w, method=method, dc_sigma_ev=dc_sigma_ev)
     plain_at_anchors = eps2_to_eps1(x, y, a, method="exact", dc_sigma_ev=dc_sigma_ev)
@@ -237,7 +238,7 @@ def subtractive_from_data(
     reconstruction agrees with eps1 at the anchors by construction, so those points carry
     no test information; hold one out for validation (REFERENCES.md item 2).
     """
-    x, e1 = _check_axis(energy_ev, eps1, "eps1")
+    x, e1 = check_axis(energy_ev, eps1, "eps1")
     idx = choose_anchors(x, n_anchors)
     return subtractive_result(
         x, eps2, x[idx], e1[idx], at_ev, method=method, dc_sigma_ev=dc_sigma_ev

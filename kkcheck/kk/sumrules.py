@@ -15,14 +15,23 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import InputError
+from ..jsonsafe import json_float, json_floats
 from ..units import eps_to_nk
-from .transform import _check_axis
+from .checks import check_axis
 
 __all__ = ["NEFF_CM3_EV2", "SumRuleResult", "fsum_cumulative", "n_eff", "sum_rules"]
 
-#: 2 eps0 m_e / (pi hbar^2) in cm^-3 eV^-2 (CODATA; REFERENCES.md item 5):
+#: 2 eps0 m_e / (pi hbar^2) in cm^-3 eV^-2, computed from the CODATA values of eps0, m_e,
+#: hbar and e (Smith 1985, the N_eff definition):
 #: N_eff(E) = NEFF_CM3_EV2 / N_a * int_0^E E' eps2(E') dE'.
 NEFF_CM3_EV2 = 4.6171e20
+#: What the integrals in :meth:`SumRuleResult.to_dict` are (the ``notes`` of that block).
+SUMMARY_NOTE = (
+    "integrals over the measured window only: int_{x0}^{E} E' eps2 dE' "
+    "(fsum_ev2), sqrt((2/pi) fsum) (effective plasma energy), int (n - 1) dE and "
+    "int (eps1 - 1) dE; the full-axis inertial values are 0 (insulator) or "
+    "-(pi/2) sigma0/eps0 (conductor)"
+)
 
 
 def fsum_cumulative(energy_ev, eps2) -> np.ndarray:
@@ -30,7 +39,7 @@ def fsum_cumulative(energy_ev, eps2) -> np.ndarray:
 
     Simpson's rule per segment is exact here because E' eps2(E') is quadratic on a segment.
     """
-    x, y = _check_axis(energy_ev, eps2, "eps2")
+    x, y = check_axis(energy_ev, eps2, "eps2")
     xm = 0.5 * (x[1:] + x[:-1])
     ym = 0.5 * (y[1:] + y[:-1])
     seg = np.diff(x) / 6.0 * (x[:-1] * y[:-1] + 4.0 * xm * ym + x[1:] * y[1:])
@@ -57,11 +66,17 @@ def n_eff(energy_ev, eps2, density_cm3: float) -> np.ndarray:
     Notes
     -----
     N_eff(E) = (2 eps0 m / (pi hbar^2 N_a)) int_0^E E' eps2(E') dE'
-             = (4.6171e20 cm^-3 eV^-2 / N_a) int_0^E E' eps2(E') dE'   (REFERENCES.md item 5).
+             = (4.6171e20 cm^-3 eV^-2 / N_a) int_0^E E' eps2(E') dE',
+
+    the constant computed from the CODATA values (equivalently n [cm^-3] = 7.2525e20
+    (hbar wp [eV])^2). The definition is the one of Smith (1985) [1]_; its equation number
+    there was not checked.
 
     References
     ----------
-    .. [1] D. Y. Smith, in Palik (ed.), Handbook of Optical Constants of Solids (1985), ch. 3.
+    .. [1] D. Y. Smith, "Dispersion theory, sum rules, and their application to the analysis
+       of optical data," ch. 3 in E. D. Palik (ed.), *Handbook of Optical Constants of Solids*,
+       Academic Press (1985) (year from memory).
     """
     if not (np.isfinite(density_cm3) and density_cm3 > 0):
         raise InputError("expected a number density density_cm3 > 0 (atoms per cm^3)")
@@ -110,6 +125,60 @@ class SumRuleResult:
     window_ev: tuple[float, float]
     caution: str
 
+    def to_dict(self) -> dict:
+        """The ``sum_rules`` block of summary.json: scalars plus the running f-sum.
+
+        Keys: window_ev, fsum_ev2 and effective_plasma_energy_ev (at the window's top),
+        inertial_n_ev, inertial_eps1_ev, expected_inertial_eps1_ev, caution, running (energy_ev
+        and effective_plasma_energy_ev on at most 25 evenly picked energies) and notes (what
+        the integrals are). Floats are JSON-safe (:func:`kkcheck.jsonsafe.json_float`).
+        """
+        pick = np.unique(np.linspace(0, self.energy_ev.size - 1, 25).round().astype(int))
+        return {
+            "window_ev": json_floats(self.window_ev),
+            "fsum_ev2": json_float(self.fsum_ev2[-1]),
+            "effective_plasma_energy_ev": json_float(self.plasma_energy_ev[-1]),
+            "inertial_n_ev": json_float(self.inertial_n_ev),
+            "inertial_eps1_ev": json_float(self.inertial_eps1_ev),
+            "expected_inertial_eps1_ev": json_float(self.expected_inertial_eps1_ev),
+            "caution": self.caution,
+            "running": {
+                "energy_ev": json_floats(self.energy_ev[pick]),
+                "effective_plasma_energy_ev": json_floats(self.plasma_energy_ev[pick]),
+            },
+            "notes": SUMMARY_NOTE,
+        }
+
+
+def _cautions(x, y2, n, y1, edge_fraction: float) -> list[str]:
+    """One caution per rule whose estimated out-of-window share exceeds ``edge_fraction``.
+
+    For each integrand g (E eps2, n - 1, eps1 - 1) the part outside the window is estimated
+    as |g(x_0)| x_0 (bounded below the window) plus |g(x_M)| x_M (E^-2 decay above it). When
+    that exceeds ``edge_fraction`` of int |g| dE over the window, the rule is partial and the
+    caution says which rule and which end. The rule is a heuristic: it cannot see absorption
+    that starts beyond the window with nothing inside it.
+    """
+    notes = []
+    for label, g in (
+        ("f-sum (E eps2)", x * y2),
+        ("inertial n - 1", n - 1.0),
+        ("inertial eps1 - 1", y1 - 1.0),
+    ):
+        share = _edge_share(x, g)
+        if share > edge_fraction:
+            ends = []
+            inside = np.trapezoid(np.abs(g), x)
+            if abs(g[0]) * x[0] > 0.5 * edge_fraction * inside:
+                ends.append("low")
+            if abs(g[-1]) * x[-1] > 0.5 * edge_fraction * inside:
+                ends.append("high")
+            notes.append(
+                f"{label}: about {100 * share:.0f}% may lie outside the window "
+                f"({' and '.join(ends) or 'both'} end); the integral is partial"
+            )
+    return notes
+
 
 def _edge_share(x: np.ndarray, g: np.ndarray) -> float:
     """Estimated out-of-window part of int g dE relative to int |g| dE over the window.
@@ -156,23 +225,20 @@ def sum_rules(
     f-sum: int_0^inf E eps2 dE = (pi/2) (hbar wp)^2. Inertial rules:
     int_0^inf (n - 1) dE = 0 (insulators and conductors) and
     int_0^inf (eps1 - 1) dE = -(pi/2) sigma0/eps0 (0 for insulators)
-    (Altarelli et al. 1972; REFERENCES.md item 5). All integrals are exact for
-    piecewise-linear data (Simpson per segment for E eps2, trapezoid for the others); n comes
-    from the PL eps at the nodes, so the n-rule is exact for PL n, not for PL eps.
-
-    Caution rule: for each integrand g (E eps2, n - 1, eps1 - 1) the part outside the window
-    is estimated as |g(x_0)| x_0 (bounded below the window) plus |g(x_M)| x_M (E^-2 decay
-    above it). When that exceeds ``edge_fraction`` of int |g| dE over the window, the rule
-    is partial and ``caution`` says which rule and which end. The rule is a heuristic: it
-    cannot see absorption that starts beyond the window with nothing inside it.
+    (Altarelli, Dexter, Nussenzveig and Smith 1972 [1]_; equation numbers not checked). All
+    integrals are exact for piecewise-linear data (Simpson per segment for E eps2, trapezoid
+    for the others); n comes from the PL eps at the nodes, so the n-rule is exact for PL n,
+    not for PL eps. The caution rule is described in :func:`_cautions`.
 
     References
     ----------
-    .. [1] M. Altarelli et al., Phys. Rev. B 6, 4502 (1972).
-    .. [2] D. Y. Smith, in Palik (ed.), Handbook of Optical Constants of Solids (1985), ch. 3.
+    .. [1] M. Altarelli, D. L. Dexter, H. M. Nussenzveig, D. Y. Smith, "Superconvergence and
+       sum rules for the optical constants," Phys. Rev. B 6, 4502 (1972).
+    .. [2] D. Y. Smith, in E. D. Palik (ed.), *Handbook of Optical Constants of Solids* (1985),
+       ch. 3 (year from memory).
     """
-    x, y2 = _check_axis(energy_ev, eps2, "eps2")
-    _, y1 = _check_axis(energy_ev, eps1, "eps1")
+    x, y2 = check_axis(energy_ev, eps2, "eps2")
+    _, y1 = check_axis(energy_ev, eps1, "eps1")
     if not (0 < edge_fraction < 1):
         raise InputError("expected edge_fraction between 0 and 1")
     fs = fsum_cumulative(x, y2)
@@ -181,24 +247,7 @@ def sum_rules(
     n, _ = eps_to_nk(y1 + 1j * y2)
     in_n = float(np.trapezoid(n - 1.0, x))
     in_e = float(np.trapezoid(y1 - 1.0, x))
-    notes = []
-    for label, g in (
-        ("f-sum (E eps2)", x * y2),
-        ("inertial n - 1", n - 1.0),
-        ("inertial eps1 - 1", y1 - 1.0),
-    ):
-        share = _edge_share(x, g)
-        if share > edge_fraction:
-            ends = []
-            inside = np.trapezoid(np.abs(g), x)
-            if abs(g[0]) * x[0] > 0.5 * edge_fraction * inside:
-                ends.append("low")
-            if abs(g[-1]) * x[-1] > 0.5 * edge_fraction * inside:
-                ends.append("high")
-            notes.append(
-                f"{label}: about {100 * share:.0f}% may lie outside the window "
-                f"({' and '.join(ends) or 'both'} end); the integral is partial"
-            )
+    notes = _cautions(x, y2, n, y1, edge_fraction)
     return SumRuleResult(
         energy_ev=x,
         fsum_ev2=fs,

@@ -26,6 +26,7 @@ import warnings
 import numpy as np
 
 from ..errors import InputError
+from .checks import check_axis, check_targets
 from .fastkk import MAX_GRID_POINTS, choose_split_length, grid_points, pl_kink_sum_fast
 
 __all__ = [
@@ -48,29 +49,6 @@ _CHUNK_ELEMENTS = 262_144
 
 
 _TINY = 1e-300  # |u| + _TINY: u ln|u| -> 0 at u = 0 without a 0 * inf
-
-
-def _check_axis(energy_ev, values, name: str) -> tuple[np.ndarray, np.ndarray]:
-    x = np.asarray(energy_ev, dtype=float)
-    y = np.asarray(values, dtype=float)
-    if x.ndim != 1 or x.size < 2:
-        raise InputError("expected a 1-D energy axis with at least 2 points")
-    if y.shape != x.shape:
-        raise InputError(f"expected {name} with the same length as the energy axis ({x.size})")
-    if not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))):
-        raise InputError(f"expected finite energies and {name} values (no NaN or inf)")
-    if x[0] <= 0 or np.any(np.diff(x) <= 0):
-        raise InputError("expected photon energies > 0 eV, strictly increasing")
-    return x, y
-
-
-def _check_targets(at_ev, x: np.ndarray) -> np.ndarray:
-    if at_ev is None:
-        return x.copy()
-    w = np.atleast_1d(np.asarray(at_ev, dtype=float))
-    if w.ndim != 1 or not np.all(np.isfinite(w)) or np.any(w <= 0):
-        raise InputError("expected evaluation energies at_ev > 0 eV, finite, 1-D")
-    return w
 
 
 def _slope_changes(x: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -181,8 +159,8 @@ def eps2_to_eps1(energy_ev, eps2, at_ev=None, *, method="auto", dc_sigma_ev=0.0)
     .. [1] REFERENCES.md items 1 and 3 (the closed form checked against quadrature).
     .. [2] A. B. Kuzmenko, Rev. Sci. Instrum. 76, 083108 (2005).
     """
-    x, y = _check_axis(energy_ev, eps2, "eps2")
-    w = _check_targets(at_ev, x)
+    x, y = check_axis(energy_ev, eps2, "eps2")
+    w = check_targets(at_ev, x)
     c = _slope_changes(x, y)
     s = _kink_sum(x, c, w, -1, method)
     ends = _end_term(-y[0], _log_abs(w**2 - x[0] ** 2) + 2.0)
@@ -233,8 +211,8 @@ def eps1_to_eps2(
     .. [1] REFERENCES.md item 1 (conductor form and the Drude check table).
     .. [2] F. Wooten, *Optical Properties of Solids*, Academic Press (1972), App. G.
     """
-    x, y = _check_axis(energy_ev, eps1_minus_inf, "eps1 - eps_inf")
-    w = _check_targets(at_ev, x)
+    x, y = check_axis(energy_ev, eps1_minus_inf, "eps1 - eps_inf")
+    w = check_targets(at_ev, x)
     c = _slope_changes(x, y)
     s = _kink_sum(x, c, w, +1, method)
     ends = _end_term(y[0], _log_abs(x[0] - w) - _log_abs(x[0] + w))
@@ -292,7 +270,7 @@ def dc_sigma_from_low_energy(energy_ev, eps2, n_points: int = 10) -> float:
     ----------
     .. [1] REFERENCES.md item 1 (Drude form, sigma0/eps0 = wp^2/gamma).
     """
-    x, y = _check_axis(energy_ev, eps2, "eps2")
+    x, y = check_axis(energy_ev, eps2, "eps2")
     n = int(n_points)
     if n < 3 or n > x.size:
         raise InputError(f"expected n_points between 3 and the number of points ({x.size})")
