@@ -412,7 +412,7 @@ def analyse(
         merged = merge(
             datasets,
             reference=options.reference,
-            apply_correction=options.correct,
+            correct=options.correct,
             overlap=options.overlap,
         )
         kk_opts = KKTestOptions()

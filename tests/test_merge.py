@@ -7,6 +7,8 @@ with closed forms (inverse-variance mean, linearity of the KK transform).
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 
@@ -14,6 +16,7 @@ from kkcheck.errors import InputError
 from kkcheck.kk.kernels import pl_kk_matrix
 from kkcheck.materials import lorentz, tauc_lorentz
 from kkcheck.merge import (
+    ReferenceTrial,
     estimate_scale_offset,
     find_gaps,
     merge,
@@ -78,7 +81,7 @@ def test_offset_and_scale_fitted_jointly():
 def test_estimates_reported_but_not_applied():
     a = _ds("a", np.linspace(1.0, 3.2, 300), seed=5)
     b = _ds("b", np.linspace(2.6, 5.5, 300), scale=1.05, seed=6)
-    res = merge([a, b], reference="a", apply_correction=False)
+    res = merge([a, b], reference="a", correct=False)
     rb = res.sources[1]
     assert abs(rb.scale - 1.05) < 0.02 and not rb.applied
     hi = res.spectrum.energy_ev > 3.3  # only b there: values as measured
@@ -181,7 +184,7 @@ def test_blend_is_inverse_variance_mean_with_provenance():
         np.full(50, 0.2),
         provenance=Provenance(rows=np.arange(10, 60)),
     )
-    res = merge([a, b], reference="a", apply_correction=False)
+    res = merge([a, b], reference="a", correct=False)
     sp = res.spectrum
     w1 = np.array([1 / 0.1**2, 1 / 0.3**2])
     assert len(sp) == 50
@@ -192,7 +195,7 @@ def test_blend_is_inverse_variance_mean_with_provenance():
     assert np.all(sp.flags & Flag.BLENDED) and np.all(sp.flags & Flag.OVERLAP)
     assert np.all(sp.source == 0)  # "a" carries the larger weight
     # side by side: every point kept, labelled with its source and file row
-    sbs = merge([a, b], reference="a", apply_correction=False, overlap="side_by_side")
+    sbs = merge([a, b], reference="a", correct=False, overlap="side_by_side")
     s = sbs.spectrum
     assert len(s) == 100 and sorted(set(s.source)) == [0, 1]
     np.testing.assert_array_equal(s.row[s.source == 1], np.arange(10, 60))
@@ -312,7 +315,7 @@ def test_two_sources_cannot_be_told_apart():
 def test_bad_input_messages():
     a = _ds("a", np.linspace(1.0, 2.0, 50))
     b = _ds("b", np.linspace(3.0, 4.0, 50))
-    with pytest.raises(InputError, match="overlap must be one of"):
+    with pytest.raises(InputError, match="overlap = .average. is not a choice"):
         merge([a, b], overlap="average")
     with pytest.raises(InputError, match="not one of the sources"):
         merge([a, b], reference="c")
@@ -325,3 +328,67 @@ def test_bad_input_messages():
     assert np.isnan(res.sources[1].scale) and not res.sources[1].applied
     # duplicate names are made unique, and said so by the name itself
     assert merge([a, _ds("a", np.linspace(1.5, 2.5, 50))]).spectrum.source_names == ("a", "a#2")
+
+
+def test_mode_and_overlap_are_checked_choices():
+    a = _ds("a", np.linspace(1.0, 2.0, 50))
+    with pytest.raises(InputError, match="mode = 'both' is not a choice"):
+        rank_references([a], _kk_relative_residual, mode="both")
+    with pytest.raises(InputError, match="overlap = 'mean' is not a choice"):
+        rank_references([a], _kk_relative_residual, overlap="mean")
+
+
+def test_to_dict_is_json_safe_and_carries_the_estimates():
+    # Closed forms checked: the planted 5 % scale of "b" (Tauc-Lorentz truth), the planted
+    # gap 2.0-2.5 eV before "c", which no chain of overlaps links (estimates unknown: null).
+    a = _ds("a", np.linspace(1.0, 2.0, 200), seed=16)
+    b = _ds("b", np.linspace(1.6, 2.0, 100), scale=1.05, seed=17)
+    c = _ds("c", np.linspace(2.5, 4.0, 200), seed=18)
+    with pytest.warns(RuntimeWarning, match="no chain of overlaps"):
+        res = merge([a, b, c], reference="a")
+    d = res.to_dict("blend")
+    json.dumps(d, allow_nan=False)  # NaN would raise: JSON has no NaN
+    assert list(d) == ["reference", "sources", "gaps_ev", "overlap", "notes"]
+    assert d["reference"] == "a" and d["overlap"] == "blend" and d["notes"] == list(res.notes)
+    assert d["gaps_ev"] == [[2.0, 2.5]]
+    sa, sb, sc = d["sources"]
+    assert sa["reference"] and sa["scale"] == 1.0 and sa["range_ev"] == [1.0, 2.0]
+    assert sb["scale"] == pytest.approx(1.05, abs=0.02) and sb["applied"]
+    assert sb["overlap_points"] == res.sources[1].n_overlap > 20
+    assert sc["scale"] is None and sc["eps1_offset_sigma"] is None and not sc["applied"]
+    assert set(sa) == {
+        "name",
+        "range_ev",
+        "eps1_offset",
+        "eps1_offset_sigma",
+        "scale",
+        "scale_sigma",
+        "reference",
+        "overlap_points",
+        "applied",
+    }
+    # with a ranking: its items and the suspect; a NaN score is written as null
+    trials = (
+        ReferenceTrial("suspect", "b", 2.0, 1.0, res.sources),
+        ReferenceTrial("uncorrected", "", float("nan"), float("nan"), res.sources),
+    )
+    d = res.to_dict("blend", trials)
+    json.dumps(d, allow_nan=False)
+    assert d["reference_ranking"] == [
+        {"hypothesis": "suspect", "source": "b", "score": 2.0, "ratio": 1.0},
+        {"hypothesis": "uncorrected", "source": "", "score": None, "ratio": None},
+    ]
+    assert "suspect_source" in d and d["suspect_source"] is None  # one suspect: cannot tell
+
+
+def test_to_dict_is_the_merge_block_of_the_summary():
+    # The summary.json "merge" block of a whole job (pipeline.build_summary) is what
+    # MergeResult.to_dict writes, ranking included.
+    from kkcheck.pipeline import JobOptions, analyse, build_summary
+
+    ds = _lorentz_sources(1.05)
+    res = analyse(ds, JobOptions(max_points=400))
+    assert res.ranking
+    expected = build_summary(res)["merge"]
+    assert res.merge.to_dict(res.options.overlap, res.ranking) == expected
+    assert expected["suspect_source"] == "B"  # the planted 5 % scale
