@@ -381,7 +381,8 @@ def test_nk_eps_round_trip():
 
 @pytest.mark.parametrize("unit", ["wavelength (um)", "wavenumber (cm-1)"])
 def test_sellmeier_silica_through_reader(tmp_path, unit):
-    # Malitson 1965 (REFERENCES item 9): fused silica n(587.56 nm) = 1.458464 [V]
+    # I. H. Malitson, J. Opt. Soc. Am. 55(10), 1205-1208 (1965): fused-silica Sellmeier
+    # coefficients; n(587.56 nm) = 1.458464 computed from them and cross-checked independently
     lam_um = np.arange(0.40, 0.80001, 0.002)
     n = np.sqrt(sellmeier_silica(1239.841984 / (lam_um * 1e3)).real)
     x = lam_um if "um" in unit.split("(")[1] else 1e4 / lam_um

@@ -49,8 +49,9 @@ def test_nk_eps_round_trip_metals_and_dielectrics():
 
 
 def test_johnson_christy_gold_row():
-    # Johnson & Christy 1972, Au at 1.88 eV: n = 0.14, k = 3.697 -> eps = -13.648 + 1.035i
-    # (REFERENCES.md item 12; eps column [V])
+    # P. B. Johnson, R. W. Christy, Phys. Rev. B 6, 4370-4379 (1972), Au at 1.88 eV: n = 0.14,
+    # k = 3.697 (the row as transcribed identically in several public scripts; the printed
+    # table was not read) -> eps = (n + ik)^2 = -13.648 + 1.035i (closed form)
     eps = nk_to_eps(0.14, 3.697)
     assert eps.real == pytest.approx(-13.648, abs=1e-3)
     assert eps.imag == pytest.approx(1.035, abs=1e-3)
@@ -75,7 +76,7 @@ def test_sigma_propagation_matches_finite_differences():
 
 def test_fused_silica_sellmeier_through_unit_layer():
     # Malitson 1965 (J. Opt. Soc. Am. 55, 1205): n(587.56 nm) = 1.458464, n(1064 nm) = 1.449631
-    # (REFERENCES.md item 9, [V] from the published coefficients)
+    # (computed from the published coefficients and cross-checked, not read from the paper)
     for lam_nm, n_ref in ((587.56, 1.458464), (1064.0, 1.449631)):
         for axis, value in (
             ("wavelength_nm", lam_nm),
@@ -88,7 +89,8 @@ def test_fused_silica_sellmeier_through_unit_layer():
 
 
 def test_convention_detection_both_ways():
-    # Passive media have k >= 0 in exp(-iwt) (REFERENCES.md item 0)
+    # Passive media have k >= 0 in exp(-iwt): the definition of that convention (a passive
+    # medium absorbs, Im N >= 0); common practice, no source
     rng = np.random.default_rng(7)
     k = np.abs(rng.normal(0.3, 0.1, 100))
     assert detect_convention(k).detected == "exp(-iwt)"

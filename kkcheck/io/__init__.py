@@ -17,6 +17,11 @@ sha256_file
 
 Both writers replace the target atomically and refuse to write over any of the run's input
 files. Header spellings live in one table, :mod:`kkcheck.io.headers`.
+
+The reader is split by what each part reads: :mod:`~kkcheck.io.text` (bytes -> lines),
+:mod:`~kkcheck.io.layout` (delimiter, header -> column roles), :mod:`~kkcheck.io.cells`
+(cells -> numbers), :mod:`~kkcheck.io.values` (numbers -> energy and eps, checks, duplicates)
+and :mod:`~kkcheck.io.read` (:func:`read_table`, the sequence of those steps).
 """
 
 from .read import read_table

@@ -1,0 +1,259 @@
+"""Lines -> cells -> numbers: delimiters, cell splitting and number parsing.
+
+* **Delimiter**, sniffed from the data lines (not the header): the first of ``;``, tab and
+  ``,`` that occurs the same number of times on every data line; failing that, the one
+  that occurs on more than half of the data lines; failing that, runs of whitespace. Empty
+  cells at the end of a row (a trailing delimiter) are dropped.
+* **Numbers** use a decimal *point* only (``1.5``, ``-2e-3``, ``1.5D+00``). A decimal comma
+  (``1,5``) is an error that says so. ``nan`` and ``inf`` are errors in axis and value
+  columns; in uncertainty columns an empty cell or ``nan`` means "not known".
+* **Rows** must have as many cells as the header (or the first row); the first fault in file
+  order is reported with its line and column.
+"""
+
+from __future__ import annotations
+
+import csv
+import re
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from ..errors import InputError
+
+if TYPE_CHECKING:  # pragma: no cover - typing only (layout imports this module)
+    from .layout import Layout
+
+__all__ = [
+    "Parsed",
+    "sniff",
+    "cells",
+    "split_all",
+    "trim",
+    "delim_name",
+    "number_like",
+    "number",
+    "parse_rows",
+]
+
+_NUMBER = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eEdD][+-]?\d+)?", re.ASCII)
+_NUMBER_COLUMN = re.compile(
+    r"(?:{n})(?:\n(?:{n}))*".format(n=r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"), re.ASCII
+)
+_NONFINITE = re.compile(r"[+-]?(?:nan|inf|infinity)", re.ASCII | re.IGNORECASE)
+_DECIMAL_COMMA = re.compile(r"[+-]?\d*,\d+(?:[eE][+-]?\d+)?", re.ASCII)
+
+
+# ------------------------------------------------------------------------------------------
+# delimiter and cells
+# ------------------------------------------------------------------------------------------
+def sniff(data_lines: list[str]) -> str:
+    """Delimiter rule of the module docstring; ``" "`` stands for runs of whitespace."""
+    for d in (";", "\t", ","):
+        counts = {line.count(d) for line in data_lines}
+        if len(counts) == 1 and counts.pop() > 0:
+            if d == "\t" and any(
+                len(c.split()) > 1 for line in data_lines for c in line.split("\t")
+            ):
+                continue  # tabs and spaces mixed for alignment: whitespace table
+            return d
+    best, best_n = " ", len(data_lines) / 2
+    for d in (";", "\t", ","):
+        n = sum(d in line for line in data_lines)
+        if n > best_n:
+            best, best_n = d, n
+    return best
+
+
+def cells(body: str, delim: str, shown: str, lineno: int) -> list[str]:
+    """Cells of one line, stripped (csv quoting rules for a real delimiter)."""
+    if delim == " ":
+        return body.split()
+    try:
+        row = next(csv.reader([body], delimiter=delim, skipinitialspace=True, strict=False))
+    except (csv.Error, StopIteration) as exc:
+        raise InputError(f"cannot split the row into cells ({exc})", shown, lineno) from None
+    return [c.strip() for c in row]
+
+
+def split_all(data: list[tuple[int, str]], delim: str, shown: str) -> list[list[str]]:
+    """Cells of every data line (one csv reader for all lines: fast on large files)."""
+    if delim == " ":
+        return [b.split() for _, b in data]
+    reader = csv.reader((b for _, b in data), delimiter=delim, skipinitialspace=True, strict=False)
+    out = []
+    try:
+        for row in reader:
+            out.append([c.strip() for c in row])
+    except csv.Error as exc:
+        raise InputError(
+            f"cannot split the row into cells ({exc})", shown, data[len(out)][0]
+        ) from None
+    if len(out) != len(data):  # a quote left open joined lines into one field
+        for ln, body in data:
+            if body.count('"') % 2:
+                raise InputError(
+                    "unbalanced quote: expected quoted cells to close on the same line",
+                    shown,
+                    ln,
+                )
+        raise InputError("cannot split the rows into cells (quoted line breaks)", shown)
+    return out
+
+
+def trim(row: list[str]) -> list[str]:
+    """Drop empty cells at the end (a trailing delimiter)."""
+    row = list(row)
+    while row and row[-1] == "":
+        row.pop()
+    return row
+
+
+def delim_name(delim: str) -> str:
+    """How a delimiter is named in messages."""
+    return {";": "';'", "\t": "tab", ",": "','", " ": "whitespace"}[delim]
+
+
+# ------------------------------------------------------------------------------------------
+# cells -> numbers
+# ------------------------------------------------------------------------------------------
+def number_like(tok: str) -> bool:
+    """A number, or something meant as one (nan, inf, decimal comma): not a header name."""
+    return bool(
+        _NUMBER.fullmatch(tok) or _NONFINITE.fullmatch(tok) or _DECIMAL_COMMA.fullmatch(tok)
+    )
+
+
+def number(tok: str, shown: str, lineno: int, col: int, name: str, *, sigma: bool) -> float:
+    """The number in cell ``tok`` (column ``col``, 1-based, named ``name``) of line ``lineno``.
+
+    With ``sigma`` (an uncertainty column) an empty cell or ``nan`` gives NaN ("not known").
+    """
+    if _NUMBER.fullmatch(tok):
+        v = float(tok.replace("d", "e").replace("D", "e"))
+        if np.isfinite(v):
+            return v
+        raise InputError(
+            f"column {col} ({name}): {tok!r} is too large to be a finite number", shown, lineno
+        )
+    if sigma and (tok == "" or tok.lower() in ("nan", "+nan", "-nan")):
+        return float("nan")
+    where = f"column {col} ({name})"
+    if tok == "":
+        raise InputError(f"{where} is empty: expected a number", shown, lineno)
+    if _NONFINITE.fullmatch(tok):
+        raise InputError(f"{where}: {tok!r} is not a finite number; expected one", shown, lineno)
+    if _DECIMAL_COMMA.fullmatch(tok):
+        raise InputError(
+            f"{where}: {tok!r} uses a decimal comma; expected a number with a decimal point",
+            shown,
+            lineno,
+        )
+    shown_tok = tok if len(tok) <= 40 else tok[:37] + "..."
+    raise InputError(f"{where}: expected a number, found {shown_tok!r}", shown, lineno)
+
+
+@dataclass(frozen=True)
+class Parsed:
+    """The numbers of the used columns, in file order.
+
+    Attributes
+    ----------
+    lines : numpy.ndarray of int
+        1-based file line of each row.
+    axis_values : numpy.ndarray
+        The axis column, in the file's own unit.
+    extra_axes : tuple of numpy.ndarray
+        Further axis columns (to be checked against the first).
+    v1, v2 : numpy.ndarray
+        The two value columns as written (n, k or eps1, eps2).
+    nk_check : tuple of numpy.ndarray or None
+        n, k when eps1, eps2 are the values and n, k are also present.
+    s1, s2 : numpy.ndarray or None
+        The uncertainty columns as written (NaN = not known).
+    """
+
+    lines: np.ndarray
+    axis_values: np.ndarray
+    extra_axes: tuple[np.ndarray, ...]
+    v1: np.ndarray
+    v2: np.ndarray
+    nk_check: tuple[np.ndarray, np.ndarray] | None
+    s1: np.ndarray | None
+    s2: np.ndarray | None
+
+
+def parse_rows(
+    rows: list[tuple[int, list[str]]], lay: Layout, delim: str, shown: str, header_line: int | None
+) -> Parsed:
+    """Numbers of the columns ``lay`` uses, from (line number, cells) rows."""
+    wanted = [lay.axis_col, *(c for c, _ in lay.extra_axes), *lay.value_cols]
+    if lay.nk_check_cols:
+        wanted += list(lay.nk_check_cols)
+    sig = list(lay.sigma_cols) if lay.sigma_cols else []
+    fast = _parse_fast(rows, lay, wanted, sig)
+    if fast is not None:
+        cols = fast
+    else:
+        cols = _parse_slow(rows, lay, wanted, sig, delim, shown, header_line)
+
+    def arr(c):
+        return cols[c]
+
+    return Parsed(
+        lines=np.array([r[0] for r in rows], dtype=int),
+        axis_values=arr(lay.axis_col),
+        extra_axes=tuple(arr(c) for c, _ in lay.extra_axes),
+        v1=arr(lay.value_cols[0]),
+        v2=arr(lay.value_cols[1]),
+        nk_check=(arr(lay.nk_check_cols[0]), arr(lay.nk_check_cols[1]))
+        if lay.nk_check_cols
+        else None,
+        s1=arr(sig[0]) if sig else None,
+        s2=arr(sig[1]) if sig else None,
+    )
+
+
+def _parse_fast(rows, lay: Layout, wanted, sig) -> dict[int, np.ndarray] | None:
+    """All cells plain finite numbers in rows of the right length: convert column-wise.
+
+    Returns None when anything is unusual; the row-by-row parser then finds the first fault
+    in file order and words the error.
+    """
+    n = lay.ncols
+    if any(len(row) != n for _, row in rows):
+        return None
+    out = {}
+    for c in wanted + sig:
+        tokens = [row[c] for _, row in rows]
+        if not _NUMBER_COLUMN.fullmatch("\n".join(tokens)):
+            return None
+        try:
+            v = np.array(tokens, dtype=float)
+        except ValueError:
+            return None
+        if not np.all(np.isfinite(v)):
+            return None
+        out[c] = v
+    return out
+
+
+def _parse_slow(rows, lay: Layout, wanted, sig, delim, shown, header_line):
+    cols: dict[int, list[float]] = {c: [] for c in wanted + sig}
+    where = f" as in the header (line {header_line})" if header_line else " as in the first row"
+    for lineno, row in rows:
+        if len(row) > lay.ncols and not any(row[lay.ncols :]):
+            row = row[: lay.ncols]  # trailing delimiter
+        if len(row) != lay.ncols:
+            raise InputError(
+                f"expected {lay.ncols} {delim_name(delim)}-separated cells{where}, "
+                f"found {len(row)}",
+                shown,
+                lineno,
+            )
+        for c in wanted:
+            cols[c].append(number(row[c], shown, lineno, c + 1, lay.names[c], sigma=False))
+        for c in sig:
+            cols[c].append(number(row[c], shown, lineno, c + 1, lay.names[c], sigma=True))
+    return {c: np.asarray(v, dtype=float) for c, v in cols.items()}
