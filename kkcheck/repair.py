@@ -20,12 +20,13 @@ max(1, chi2/dof) (:meth:`kkcheck.kk.basisfit.KKBasisModel.eps_sigma`). At measur
 that are kept, the band is the data's own noise. Parameters held at the bound eps2 = 0 do not
 contribute, so where the model's eps2 is exactly zero its propagated eps2 band is zero ("no
 absorption is needed here", not a measurement); the band is therefore floored at
-max(1e-4 |eps|, 1e-6), the noise floor of :mod:`kkcheck.kk.noise`.
+max(1e-4 |eps|, 1e-6), the noise floor of every stage (:func:`kkcheck.noise.noise_floor`).
 
 References
 ----------
 .. [1] A. B. Kuzmenko, "Kramers–Kronig constrained variational analysis of optical spectra,"
-   Rev. Sci. Instrum. 76, 083108 (2005).
+   Rev. Sci. Instrum. 76, 083108 (2005) (the KK-constrained basis model); see
+   docs/references.md [Kuzmenko2005].
 """
 
 from __future__ import annotations
@@ -37,8 +38,10 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
-from .kk.basisfit import fit_kk_basis, unsupported_nodes
+from .kk.basisfit import KKBasisModel
 from .kk.consistency import KKTestResult
+from .noise import MIN_POINTS, NOISE_FLOOR_ABS, NOISE_FLOOR_REL, noise_floor
+from .options import RepairChoice, check_choice, choices
 from .spectrum import Flag, Spectrum
 from .units import AXIS_UNITS, eps_to_nk, from_energy_ev
 
@@ -52,11 +55,12 @@ __all__ = [
     "default_grid",
 ]
 
-POLICIES = ("none", "replace_flagged", "replace_flagged_and_regions", "model")
-#: Floor of the model band, max(BAND_REL_FLOOR * |eps|, BAND_ABS_FLOOR): the same floor as the
-#: noise estimate (:mod:`kkcheck.kk.noise`), so no value is ever claimed to be exact.
-BAND_REL_FLOOR = 1e-4
-BAND_ABS_FLOOR = 1e-6
+#: The repair policies, in the order of :data:`kkcheck.options.RepairChoice`.
+POLICIES = choices(RepairChoice)
+#: Floor of the model band, max(BAND_REL_FLOOR * |eps|, BAND_ABS_FLOOR): the noise floor of
+#: every stage (:mod:`kkcheck.noise`), so no value is ever claimed to be exact.
+BAND_REL_FLOOR = NOISE_FLOOR_REL
+BAND_ABS_FLOOR = NOISE_FLOOR_ABS
 
 
 @dataclass(frozen=True)
@@ -117,6 +121,14 @@ class RepairResult:
     changes: tuple[Change, ...]
     notes: tuple[str, ...]
 
+    def to_dict(self) -> dict:
+        """The ``repair`` block of summary.json: grid points, changed values and notes."""
+        return {
+            "points": len(self.energy_ev),
+            "changed": len(self.changes),
+            "notes": list(self.notes),
+        }
+
     def to_frame(self, axis: str = "energy_ev") -> pd.DataFrame:
         """Table of the repaired spectrum with the axis in unit ``axis``.
 
@@ -176,7 +188,7 @@ def default_grid(energy_ev, gap_factor: float = 6.0, max_fill: int = 50) -> np.n
     return np.union1d(e, np.concatenate(extra)) if extra else e
 
 
-def _replace_masks(spectrum: Spectrum, kk: KKTestResult, policy: str):
+def _replace_masks(spectrum: Spectrum, kk: KKTestResult, policy: RepairChoice):
     """Per data point: (replace eps1, replace eps2, reason, in_region) under ``policy``."""
     m = len(spectrum)
     flags = spectrum.flags
@@ -213,7 +225,7 @@ def repair(
     kk_result: KKTestResult,
     grid_ev=None,
     *,
-    policy: str = "replace_flagged",
+    policy: RepairChoice = "replace_flagged",
 ) -> RepairResult:
     """KK-consistent repair of ``spectrum`` on a grid, with every change recorded.
 
@@ -225,8 +237,8 @@ def repair(
         Output of :func:`kkcheck.kk.consistency.kk_test` on ``spectrum``.
     grid_ev : array_like, optional
         Output energies [eV] (> 0). Default: :func:`default_grid` of the data.
-    policy : str
-        One of :data:`POLICIES` (see the module docstring).
+    policy : {"none", "replace_flagged", "replace_flagged_and_regions", "model"}
+        What is replaced (:data:`kkcheck.options.RepairChoice`, the module docstring).
 
     Returns
     -------
@@ -241,16 +253,15 @@ def repair(
     Notes
     -----
     The model eps(w) = eps_inf + sum_i A_i [K_i(w) + i T_i(w)] + Drude terms is refitted on the
-    nodes of ``kk_result.model`` with weight 0 at every point that is replaced and at every
-    SPIKE/STEP point; nodes left without data between their neighbours get the same
-    smoothness prior as nodes in a gap (:func:`kkcheck.kk.basisfit.fit_kk_basis`). An output
+    nodes of ``kk_result.model`` (:meth:`kkcheck.kk.basisfit.KKBasisModel.refit`) with weight 0
+    at every point that is replaced and at every SPIKE/STEP point; nodes left without data
+    between their neighbours get the same smoothness prior as nodes in a gap. An output
     energy equal (to 1e-12 relative) to measured points keeps the measured value unless it is
     replaced; several measured points at one energy are combined by their inverse-variance
-    mean. Output energies without a measurement get the model value
-    and Flag.FILLED; beyond the measured window that is an extrapolation, reported in notes.
+    mean. Output energies without a measurement get the model value and Flag.FILLED; beyond
+    the measured window that is an extrapolation, reported in notes.
     """
-    if policy not in POLICIES:
-        raise InputError(f"policy must be one of {', '.join(POLICIES)}, got {policy!r}")
+    check_choice("policy", policy, RepairChoice)
     e = spectrum.energy_ev
     if kk_result.energy_ev.shape != e.shape or not np.allclose(kk_result.energy_ev, e):
         raise InputError("kk_result was not computed from this spectrum (energies differ)")
@@ -259,90 +270,147 @@ def repair(
         raise InputError("grid_ev must hold finite energies > 0 eV")
     notes = [f"policy {policy!r}"]
     r1, r2, reason, in_region = _replace_masks(spectrum, kk_result, policy)
-    suspicious = (spectrum.flags & (int(Flag.SPIKE) | int(Flag.STEP))) != 0
-    weights = np.where(r1 | r2 | suspicious, 0.0, 1.0)
-    if policy == "model":
-        weights = np.where(suspicious, 0.0, 1.0)
-    old_model = kk_result.model
-    if weights.sum() < 8:
-        raise InputError("fewer than 8 points would remain to fit after removing flagged ones")
-    if np.all(weights == 1.0):
-        model = old_model
-    else:
-        fit = fit_kk_basis(
-            e,
-            spectrum.eps,
-            kk_result.sigma_eps1,
-            kk_result.sigma_eps2,
-            old_model.nodes_ev,
-            tied=old_model.tied,
-            in_gap=old_model.in_gap | unsupported_nodes(old_model.nodes_ev, e[weights > 0], e),
-            drude_gamma_ev=old_model.drude_gamma_ev,
-            weights=weights,
-        )
-        model = fit.model
+    model = _refit_model(spectrum, kk_result, r1 | r2, policy)
     mod = model.eps(grid)
     band1, band2 = model.eps_sigma(grid)
-    floor = np.maximum(BAND_REL_FLOOR * np.abs(mod), BAND_ABS_FLOOR)
-    band1 = np.maximum(band1, floor)
-    band2 = np.maximum(band2, floor)
-    out = np.array(mod)
-    s1 = np.array(band1)
-    s2 = np.array(band2)
-    flags = np.zeros(grid.size, int)
-    changes = []
-    names = spectrum.source_names
-    # map measured points onto the grid
+    floor = noise_floor(mod)
+    table = _Table(
+        eps=np.array(mod),
+        s1=np.array(np.maximum(band1, floor)),
+        s2=np.array(np.maximum(band2, floor)),
+        flags=np.zeros(grid.size, int),
+        measured=np.zeros(grid.size, bool),
+    )
+    masks = {"eps1": r1, "eps2": r2}
+    changes, blended = _place_measured(spectrum, kk_result, grid, mod, table, masks, reason)
+    _mark_regions(spectrum, grid, table, in_region)
+    for g in np.nonzero(~table.measured)[0]:
+        table.flags[g] |= int(Flag.FILLED)
+        for comp, val in (("eps1", mod.real[g]), ("eps2", mod.imag[g])):
+            changes.append(Change(float(grid[g]), "", comp, float("nan"), float(val), "fill"))
+    notes.extend(_repair_notes(spectrum, grid, table.measured, changes, blended))
+    changes.sort(key=lambda c: (c.energy_ev, c.component))
+    out = (grid, table.eps, table.s1, table.s2, table.flags)
+    for a in out:
+        a.setflags(write=False)
+    return RepairResult(
+        energy_ev=grid,
+        eps=table.eps,
+        sigma_eps1=table.s1,
+        sigma_eps2=table.s2,
+        flags=table.flags,
+        changes=tuple(changes),
+        notes=tuple(notes),
+    )
+
+
+def _refit_model(
+    spectrum: Spectrum, kk_result: KKTestResult, replaced: np.ndarray, policy: RepairChoice
+) -> KKBasisModel:
+    """The test's model refitted with weight 0 at replaced and SPIKE/STEP points.
+
+    With ``"model"`` only SPIKE/STEP points are left out; the test's own model is returned
+    unchanged when no point is left out.
+    """
+    suspicious = (spectrum.flags & (int(Flag.SPIKE) | int(Flag.STEP))) != 0
+    weights = np.where(replaced | suspicious, 0.0, 1.0)
+    if policy == "model":
+        weights = np.where(suspicious, 0.0, 1.0)
+    if weights.sum() < MIN_POINTS:
+        raise InputError(
+            f"fewer than {MIN_POINTS} points would remain to fit after removing flagged ones"
+        )
+    if np.all(weights == 1.0):
+        return kk_result.model
+    fit = kk_result.model.refit(
+        spectrum.energy_ev, spectrum.eps, kk_result.sigma_eps1, kk_result.sigma_eps2, weights
+    )
+    return fit.model
+
+
+@dataclass
+class _Table:
+    """The output columns while :func:`repair` fills them (mutable working state)."""
+
+    eps: np.ndarray
+    s1: np.ndarray
+    s2: np.ndarray
+    flags: np.ndarray
+    measured: np.ndarray
+
+
+def _match_grid(grid: np.ndarray, e: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per data point: nearest grid index and whether it equals that grid energy (1e-12 rel)."""
     pos = np.searchsorted(grid, e)
     pos = np.clip(pos, 0, grid.size - 1)
     lower = np.clip(pos - 1, 0, grid.size - 1)
     pick = np.where(np.abs(grid[lower] - e) < np.abs(grid[pos] - e), lower, pos)
     match = np.abs(grid[pick] - e) <= 1e-12 * e
-    measured = np.zeros(grid.size, bool)
+    return pick, match
+
+
+def _place_measured(spectrum, kk_result, grid, mod, table: _Table, masks, reason):
+    """Write measured values onto matching grid points; record every replaced one.
+
+    Returns the list of changes (in data order per grid point and component) and the number
+    of (grid point, component) values that combine several kept measurements.
+    """
+    e = spectrum.energy_ev
+    names = spectrum.source_names
+    pick, match = _match_grid(grid, e)
+    changes = []
     blended = 0
     for g in np.unique(pick[match]):
         idx = np.nonzero(match & (pick == g))[0]
-        measured[g] = True
+        table.measured[g] = True
         for j in idx:
-            flags[g] |= int(spectrum.flags[j])
-        for comp, rmask, sig, data in (
-            ("eps1", r1, kk_result.sigma_eps1, spectrum.eps.real),
-            ("eps2", r2, kk_result.sigma_eps2, spectrum.eps.imag),
+            table.flags[g] |= int(spectrum.flags[j])
+        for comp, sig, data, new in (
+            ("eps1", kk_result.sigma_eps1, spectrum.eps.real, mod.real[g]),
+            ("eps2", kk_result.sigma_eps2, spectrum.eps.imag, mod.imag[g]),
         ):
+            rmask = masks[comp]
             keep = idx[~rmask[idx]]
             for j in idx[rmask[idx]]:
-                new = mod.real[g] if comp == "eps1" else mod.imag[g]
-                changes.append(
-                    Change(
-                        float(e[j]),
-                        names[spectrum.source[j]],
-                        comp,
-                        float(data[j]),
-                        float(new),
-                        str(reason[j]),
-                    )
-                )
-                flags[g] |= int(Flag.REPLACED)
-            if keep.size == 1:
-                val, band = float(data[keep[0]]), float(sig[keep[0]])
-            if keep.size > 1:
-                w = 1.0 / sig[keep] ** 2
-                val = float(np.sum(w * data[keep]) / np.sum(w))
-                band = float(1.0 / np.sqrt(np.sum(w)))
+                old = float(data[j])
+                src = names[spectrum.source[j]]
+                changes.append(Change(float(e[j]), src, comp, old, float(new), str(reason[j])))
+                table.flags[g] |= int(Flag.REPLACED)
             if keep.size:
-                if comp == "eps1":
-                    out[g] = val + 1j * out[g].imag
-                    s1[g] = band
-                else:
-                    out[g] = out[g].real + 1j * val
-                    s2[g] = band
+                _keep_measured(table, g, comp, data[keep], sig[keep])
                 blended += keep.size > 1
-        if np.any(in_region[idx]):
-            flags[g] |= int(Flag.KK_REGION)
-    for g in np.nonzero(~measured)[0]:
-        flags[g] |= int(Flag.FILLED)
-        for comp, val in (("eps1", mod.real[g]), ("eps2", mod.imag[g])):
-            changes.append(Change(float(grid[g]), "", comp, float("nan"), float(val), "fill"))
+    return changes, blended
+
+
+def _keep_measured(table: _Table, g: int, comp: str, values, sigmas) -> None:
+    """Grid value and band of kept measurements: one value as is, several by inverse variance."""
+    if values.size == 1:
+        val, band = float(values[0]), float(sigmas[0])
+    else:
+        w = 1.0 / sigmas**2
+        val = float(np.sum(w * values) / np.sum(w))
+        band = float(1.0 / np.sqrt(np.sum(w)))
+    if comp == "eps1":
+        table.eps[g] = val + 1j * table.eps[g].imag
+        table.s1[g] = band
+    else:
+        table.eps[g] = table.eps[g].real + 1j * val
+        table.s2[g] = band
+
+
+def _mark_regions(spectrum, grid, table: _Table, in_region) -> None:
+    """Flag.KK_REGION on grid points matching a measured point inside a KK region."""
+    pick, match = _match_grid(grid, spectrum.energy_ev)
+    for g in np.unique(pick[match & in_region]):
+        table.flags[g] |= int(Flag.KK_REGION)
+
+
+def _repair_notes(spectrum, grid, measured, changes, blended) -> list[str]:
+    """Notes on blended sources, extrapolation, filled points and replaced values.
+
+    Warns (RuntimeWarning) when grid points lie outside the measured window.
+    """
+    notes = []
     if blended:
         notes.append(f"{blended} grid values combine several sources (inverse-variance mean)")
     lo, hi = spectrum.range_ev
@@ -353,22 +421,11 @@ def repair(
             " eV: their values are extrapolations of the KK model"
         )
         notes.append(msg)
-        warnings.warn(msg, RuntimeWarning, stacklevel=2)
+        warnings.warn(msg, RuntimeWarning, stacklevel=3)
     n_fill = int(np.sum(~measured))
     if n_fill:
         notes.append(f"{n_fill} grid points without a measurement take the model value (FILLED)")
     n_rep = sum(1 for c in changes if c.reason != "fill")
     if n_rep:
         notes.append(f"{n_rep} measured values replaced by the KK-consistent prediction")
-    changes.sort(key=lambda c: (c.energy_ev, c.component))
-    for a in (grid, out, s1, s2, flags):
-        a.setflags(write=False)
-    return RepairResult(
-        energy_ev=grid,
-        eps=out,
-        sigma_eps1=s1,
-        sigma_eps2=s2,
-        flags=flags,
-        changes=tuple(changes),
-        notes=tuple(notes),
-    )
+    return notes
