@@ -421,7 +421,9 @@ def analyse(
         ranking = None
         if options.rank_sources and len(datasets) > 1 and options.correct:
             say("ranking sources by KK consistency")
-            ranking = rank_references(datasets, _kk_score(kk_opts, options.max_points))
+            ranking = rank_references(
+                datasets, _kk_score(kk_opts, options.max_points), overlap=options.overlap
+            )
         say("finding spikes, steps and noise")
         cleaned = clean_stage(merged.spectrum, policy="keep")
         from .clean import bin_spectrum

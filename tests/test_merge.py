@@ -392,3 +392,52 @@ def test_to_dict_is_the_merge_block_of_the_summary():
     expected = build_summary(res)["merge"]
     assert res.merge.to_dict(res.options.overlap, res.ranking) == expected
     assert expected["suspect_source"] == "B"  # the planted 5 % scale
+
+
+def _shared_grid_sources():
+    """Two sources whose grids share the 101 points 2.00, 2.01, ..., 3.00 eV (B 5 % high)."""
+    return [
+        _ds("A", np.linspace(1.0, 3.0, 201), seed=19),
+        _ds("B", np.linspace(2.0, 4.0, 201), scale=1.05, seed=20),
+    ]
+
+
+def _recording_score(seen):
+    """A KK score stand-in that records (points, duplicate energies?, any BLENDED?) per call."""
+
+    def score(sp):
+        dup = bool(np.any(np.diff(sp.energy_ev) == 0))
+        seen.append((len(sp), dup, bool(np.any(sp.flags & Flag.BLENDED))))
+        return float(len(seen))
+
+    return score
+
+
+def test_rank_references_trial_merges_use_the_given_overlap():
+    # Counting closed form: 201 + 201 points with 101 energies in common. Side by side keeps
+    # all 402 (each shared energy twice, nothing blended); blend has 402 - 101 = 301 distinct
+    # energies, the shared ones blended. Every trial (baseline + 2 suspects) must see the same.
+    ds = _shared_grid_sources()
+    for overlap, expected in (("side_by_side", (402, True, False)), ("blend", (301, False, True))):
+        seen = []
+        trials = rank_references(ds, _recording_score(seen), overlap=overlap)
+        assert len(trials) == 3 and seen == [expected] * 3, overlap
+        seen = []
+        rank_references(ds, _recording_score(seen), mode="reference", overlap=overlap)
+        assert seen == [expected] * 3, overlap
+    seen = []
+    rank_references(ds, _recording_score(seen))  # default: merge()'s default, blend
+    assert seen == [(301, False, True)] * 3
+
+
+def test_pipeline_ranks_the_merge_it_analyses(monkeypatch):
+    # The job's ranking trials must be merged with the job's own overlap choice (issue 9,
+    # item 7: they were always blended while the job analysed side-by-side merges).
+    from kkcheck import pipeline
+
+    for overlap, expected in (("side_by_side", (402, True, False)), ("blend", (301, False, True))):
+        seen = []
+        monkeypatch.setattr(pipeline, "_kk_score", lambda *a, _s=seen, **k: _recording_score(_s))
+        res = pipeline.analyse(_shared_grid_sources(), pipeline.JobOptions(overlap=overlap))
+        assert len(res.merge.spectrum) == expected[0]
+        assert res.ranking and seen == [expected] * 3, overlap
