@@ -5,9 +5,9 @@ All functions use exp(-i w t), N = n + i k with k >= 0 absorbing, wavelengths in
 References
 ----------
 .. [1] M. Born, E. Wolf, *Principles of Optics*, 7th ed., Cambridge University Press (1999),
-   section 1.6 (Airy summation, characteristic matrix).
+   section 1.6 (Airy summation, characteristic matrix); section number from memory.
 .. [2] O. S. Heavens, *Optical Properties of Thin Solid Films*, Butterworths (1955); Dover
-   (1991) (film on a thick substrate, incoherent back face).
+   (1991) (intensity sums of an incoherent slab, film on a thick substrate); from memory.
 """
 
 from __future__ import annotations
@@ -17,6 +17,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import InputError
+from .jsonsafe import json_float
+from .spectrum import readonly_array
 from .units import HC_EV_NM
 
 __all__ = [
@@ -83,8 +85,9 @@ def incoherent_slab(n_slab, thickness_nm: float, wavelength_nm) -> SlabRT:
     Notes
     -----
     rho = |(1 - N)/(1 + N)|^2, tau = exp(-4 pi k d / lambda):
-    T = (1 - rho)^2 tau / (1 - rho^2 tau^2), R = rho [1 + (1 - rho)^2 tau^2 / (1 - rho^2 tau^2)]
-    (REFERENCES.md item 10).
+    T = (1 - rho)^2 tau / (1 - rho^2 tau^2), R = rho [1 + (1 - rho)^2 tau^2 / (1 - rho^2 tau^2)],
+    the intensity sum of the multiply reflected beams (Heavens [2]_, from memory); it equals
+    the coherent result of Born & Wolf [1]_ averaged over the slab phase (checked in the tests).
     """
     n = np.asarray(n_slab, dtype=complex)
     rho = np.abs((1 - n) / (1 + n)) ** 2
@@ -104,8 +107,9 @@ def film_on_substrate(
     formulas; back face rho_b = |(N_s - 1)/(N_s + 1)|^2, internal tau = exp(-4 pi k_s d_s/lambda):
     T = T_f tau (1 - rho_b)/(1 - R_f' rho_b tau^2),
     R = R_f + T_f T_f' rho_b tau^2/(1 - R_f' rho_b tau^2)
-    (Heavens [2]_; REFERENCES.md item 10, tagged from memory there). T_f and T_f' use the real
-    part of the substrate index (weakly absorbing substrate).
+    (Heavens [2]_, from memory; checked in the tests against the characteristic matrix averaged
+    over the substrate phase). T_f and T_f' use the real part of the substrate index (weakly
+    absorbing substrate).
     """
     ns = np.asarray(n_substrate, dtype=complex) * np.ones_like(np.asarray(wavelength_nm, float))
     front = coherent_slab(n_film, film_nm, wavelength_nm, 1.0, ns)
@@ -134,6 +138,11 @@ class SlabComparison:
         Photon energies of those maxima [eV].
     geometry : str
         "free-standing" or "film on substrate".
+    energy_ev : ndarray
+        Photon energies the comparison was computed at [eV] (read-only).
+    table_rt, model_rt : SlabRT
+        R and T computed from the tabulated eps and from the model on ``energy_ev``
+        [dimensionless, 0..1] (read-only arrays), e.g. for a figure.
     """
 
     thickness_nm: float
@@ -142,6 +151,24 @@ class SlabComparison:
     at_dR_ev: float
     at_dT_ev: float
     geometry: str
+    energy_ev: np.ndarray
+    table_rt: SlabRT
+    model_rt: SlabRT
+
+    def to_dict(self) -> dict:
+        """The ``slab`` block of summary.json (NaN and infinities become null)."""
+        return {
+            "thickness_nm": json_float(self.thickness_nm),
+            "geometry": self.geometry,
+            "max_abs_dR": json_float(self.max_dR),
+            "max_abs_dT": json_float(self.max_dT),
+            "at_dR_ev": json_float(self.at_dR_ev),
+            "at_dT_ev": json_float(self.at_dT_ev),
+        }
+
+
+def _readonly_rt(rt: SlabRT) -> SlabRT:
+    return SlabRT(readonly_array(rt.R), readonly_array(rt.T))
 
 
 def compare_slab(
@@ -168,6 +195,17 @@ def compare_slab(
     substrate_n : complex or array_like, optional
         Substrate index; when given the film sits on a thick incoherent substrate of thickness
         ``substrate_nm`` [nm] (default 1 mm), otherwise the slab is free-standing in air.
+
+    Returns
+    -------
+    SlabComparison
+        The largest differences and where they occur, with the R/T arrays they come from.
+
+    Notes
+    -----
+    Wavelength lambda [nm] = hc / E with hc = 1239.841984 eV nm (CODATA 2018); N = sqrt(eps)
+    (principal root). Free-standing: :func:`coherent_slab` in air; on a substrate:
+    :func:`film_on_substrate`.
     """
     w = np.asarray(energy_ev, dtype=float)
     if thickness_nm <= 0:
@@ -185,5 +223,13 @@ def compare_slab(
     dr, dt = np.abs(b.R - a.R), np.abs(b.T - a.T)
     i, j = int(np.argmax(dr)), int(np.argmax(dt))
     return SlabComparison(
-        float(thickness_nm), float(dr[i]), float(dt[j]), float(w[i]), float(w[j]), geom
+        float(thickness_nm),
+        float(dr[i]),
+        float(dt[j]),
+        float(w[i]),
+        float(w[j]),
+        geom,
+        readonly_array(w),
+        _readonly_rt(a),
+        _readonly_rt(b),
     )

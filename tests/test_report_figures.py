@@ -17,6 +17,7 @@ import pytest
 
 from kkcheck.materials import lorentz
 from kkcheck.report import figures as F
+from kkcheck.report.figures.axes import ev_nm, uses_log
 
 # Expected PNG width: 7.0 in at FIGURE_DPI (common practice for a one-column figure, no source).
 WIDTH_PX = round(7.0 * F.FIGURE_DPI)
@@ -156,10 +157,10 @@ def test_mismatched_lengths_are_programming_errors(tmp_path):
 
 def test_log_axis_rule():
     # DESIGN choice: logarithmic energy axis when the range spans more than one decade
-    assert F._uses_log(0.2, 8.0)
-    assert not F._uses_log(1.0, 6.0)
+    assert uses_log(0.2, 8.0)
+    assert not uses_log(1.0, 6.0)
     # the top axis maps E [eV] -> wavelength [nm] = hc / E, hc = 1239.841984 eV nm (CODATA 2018)
-    np.testing.assert_allclose(F._ev_nm(np.array([1.0, 2.0])), [1239.841984, 619.920992])
+    np.testing.assert_allclose(ev_nm(np.array([1.0, 2.0])), [1239.841984, 619.920992])
 
 
 def test_rc_params_restored_and_no_pyplot(tmp_path):

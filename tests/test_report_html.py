@@ -7,14 +7,18 @@ project), so the checks look at real tags and attributes, not at substrings only
 from __future__ import annotations
 
 import base64
+import dataclasses
 import math
 from html.parser import HTMLParser
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
 
 from kkcheck.materials import lorentz
 from kkcheck.report import (
+    ReportContext,
+    ReportFigure,
     build_html,
     build_markdown,
     library_versions,
@@ -22,7 +26,8 @@ from kkcheck.report import (
     write_html_report,
     write_markdown_summary,
 )
-from kkcheck.report.html import _pair_rows
+from kkcheck.report.assemble import _kk_cautions
+from kkcheck.report.format import pair_rows
 
 HOSTILE = "<script>alert(1)</script>"
 AMP_PATH = "/data/R&D/vis & nir.csv"
@@ -152,12 +157,12 @@ def test_pair_table_reads_lorentz_parameters():
     # a Lorentz term's static contribution is its strength, its pole modulus w0 and
     # -2 Re a its damping gamma (closed form of the damped oscillator)
     a, c = _lorentz_pair(3.0, 4.2, 0.6)
-    row = _pair_rows({"pairs": [{"pole": [a.real, a.imag], "residue": [c.real, c.imag]}]})[0]
+    row = pair_rows({"pairs": [{"pole": [a.real, a.imag], "residue": [c.real, c.imag]}]})[0]
     assert row["static"] == pytest.approx(3.0, rel=1e-12)
     assert row["resonance_ev"] == pytest.approx(4.2, rel=1e-12)
     assert row["damping_ev"] == pytest.approx(0.6, rel=1e-12)
     # a pole at zero (conductor term) has an unbounded static contribution
-    assert math.isinf(_pair_rows({"pairs": [{"pole": [0, 0], "residue": [1, 0]}]})[0]["static"])
+    assert math.isinf(pair_rows({"pairs": [{"pole": [0, 0], "residue": [1, 0]}]})[0]["static"])
 
 
 def test_single_file_without_external_references(tmp_path, figure_png):
@@ -273,3 +278,35 @@ def test_markdown_summary(tmp_path, figure_png):
     # and without a model there is no model section, the verdict is still there
     md2 = build_markdown({"kk": {"verdict": "consistent"}})
     assert "**consistent**" in md2 and "## Model" not in md2
+
+
+def test_report_context_is_frozen_and_equivalent_to_a_mapping(figure_png):
+    ctx = _context(figure_png)
+    rc = ReportContext.from_mapping(ctx)
+    assert isinstance(rc.figures[0], ReportFigure) and rc.figures[0].path == figure_png
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        rc.title = "other"
+    with pytest.raises(TypeError):
+        rc.kk["verdict"] = "consistent"  # mapping fields are read-only views
+    # the page and the summary do not depend on how the context was given
+    date = {"date_utc": "2020-01-01T00:00:00+00:00"}
+    fixed = {**ctx, "provenance": {**ctx["provenance"], **date}}
+    assert build_html(ReportContext.from_mapping(fixed)) == build_html(fixed)
+    assert build_markdown(ReportContext.from_mapping(fixed)) == build_markdown(fixed)
+    # outliers given as None still mean "screening ran, nothing flagged"; absent means no section
+    assert ReportContext.from_mapping({"outliers": None}).outliers == ()
+    assert ReportContext.from_mapping({}).outliers is None
+    assert "No points were flagged." in build_html({"outliers": None})
+    with pytest.raises(ValueError, match="mapping"):
+        ReportContext.from_mapping([("title", "x")])
+
+
+def test_kk_cautions_are_picked_by_code_not_by_text():
+    # a note coded "constant_offset" is left out whatever its wording (the standard caution
+    # states it); a note that only reads like it but carries another code is kept
+    kk = SimpleNamespace(
+        notes=("offset of eps1: not detectable", "a constant offset look-alike", "gap note"),
+        note_codes=("constant_offset", "gap", "gap"),
+    )
+    result = SimpleNamespace(kk=kk, summary={"kk": {"notes": [*kk.notes, "binned note"]}})
+    assert _kk_cautions(result) == ["a constant offset look-alike", "gap note", "binned note"]

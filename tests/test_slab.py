@@ -1,4 +1,15 @@
-"""Normal-incidence slab R/T against REFERENCES item 10 check values."""
+"""Normal-incidence slab R/T against closed forms and independent numerical routes.
+
+Sources: the Airy formulas and the characteristic matrix of M. Born, E. Wolf, *Principles of
+Optics*, 7th ed., Cambridge University Press (1999), section 1.6 (section number from memory);
+the incoherent intensity sums of O. S. Heavens, *Optical Properties of Thin Solid Films*,
+Butterworths (1955) (from memory). The numbers below were computed from those closed forms and
+cross-checked by an independent numpy calculation (values, not literature data).
+"""
+
+import dataclasses
+import json
+import math
 
 import numpy as np
 import pytest
@@ -12,7 +23,7 @@ from kkcheck.slab import coherent_slab, compare_slab, film_on_substrate, incoher
 @pytest.mark.parametrize(
     "n, d, R, T",
     [
-        # REFERENCES item 10 [V], air, lambda = 500 nm
+        # closed form (Born & Wolf 1999, sec. 1.6), cross-checked numerically; air, 500 nm
         (1.5, 500 / (4 * 1.5), 0.147929, None),  # quarter-wave, ((N^2-1)/(N^2+1))^2
         (1.5, 500 / (2 * 1.5), 0.0, None),  # half-wave
         (2 + 0.1j, 123, 0.010397, 0.688818),
@@ -29,14 +40,15 @@ def test_coherent_slab_reference_values(n, d, R, T):
 
 
 def test_incoherent_glass():
-    # REFERENCES item 10 [V]: glass n = 1.5, T = 2n/(n^2+1) = 0.923077, R = 0.076923
+    # closed form of the incoherent slab (Heavens 1955, from memory): lossless glass n = 1.5,
+    # T = 2n/(n^2+1) = 0.923077, R = 1 - T = 0.076923
     rt = incoherent_slab(np.array([1.5 + 0j]), 1e6, 500.0)
     assert rt.T[0] == pytest.approx(0.923077, abs=1e-6)
     assert rt.R[0] == pytest.approx(0.076923, abs=1e-6)
 
 
 def _matrix_rt(layers, lam):
-    # characteristic matrix of Born & Wolf (REFERENCES item 10), air on both sides
+    # characteristic matrix (Born & Wolf 1999, sec. 1.6), air on both sides
     m = np.eye(2, dtype=complex)
     for n, d in layers:
         dl = 2 * np.pi * n * d / lam
@@ -46,7 +58,8 @@ def _matrix_rt(layers, lam):
 
 
 def test_incoherent_equals_phase_average_of_coherent():
-    # REFERENCES item 10 [V]: the incoherent formula equals the phase-averaged coherent result
+    # the incoherent formula (Heavens 1955) equals the coherent characteristic-matrix result
+    # averaged over the slab phase (independent numerical route)
     n, lam = 1.5 + 2e-6j, 500.0
     ds = np.linspace(2e4, 2e4 + lam / 1.5, 2001)[:-1]
     avg = np.mean([_matrix_rt([(n, d)], lam) for d in ds], axis=0)
@@ -56,15 +69,15 @@ def test_incoherent_equals_phase_average_of_coherent():
 
 
 def test_film_on_substrate_equals_phase_average():
-    # film formula (REFERENCES item 10, [M]) checked against the characteristic matrix averaged
-    # over the substrate phase (independent numerical route)
+    # film formula (Heavens 1955, from memory) checked against the characteristic matrix
+    # averaged over the substrate phase (independent numerical route)
     nf, ns, lam = 2 + 0.1j, 1.5 + 1e-6j, 500.0
     ds = np.linspace(1e5, 1e5 + lam / 1.5, 2001)[:-1]
     avg = np.mean([_matrix_rt([(nf, 123.0), (ns, d)], lam) for d in ds], axis=0)
     rt = film_on_substrate(np.array([nf]), 123.0, ns, 1e5, lam)
     assert rt.R[0] == pytest.approx(avg[0], abs=2e-5)
     assert rt.T[0] == pytest.approx(avg[1], abs=2e-5)
-    # a film of index 1 leaves bare glass: the incoherent glass values of item 10
+    # a film of index 1 leaves bare glass: T = 2n/(n^2+1) of the incoherent glass slab
     bare = film_on_substrate(np.array([1.0 + 0j]), 50.0, 1.5, 1e6, lam)
     assert bare.T[0] == pytest.approx(0.923077, abs=1e-6)
 
@@ -82,7 +95,7 @@ def test_compare_slab():
     assert c.max_dR < 1e-10 and c.max_dT < 1e-10 and c.geometry == "free-standing"
     shifted = model_from_terms(1.1, drude=[(np.sqrt(f0) * wp, g0)])
     c2 = compare_slab(w, eps, shifted, 30.0, substrate_n=1.5)
-    # the error must show: direct R/T of the two eps arrays (closed form of item 10)
+    # the error must show: direct R/T of the two eps arrays (closed form of the film formula)
     lam = 1239.841984 / w
     a = film_on_substrate(np.sqrt(eps), 30.0, 1.5, 1e6, lam)
     b = film_on_substrate(np.sqrt(shifted.eps(w)), 30.0, 1.5, 1e6, lam)
@@ -90,3 +103,42 @@ def test_compare_slab():
     assert c2.max_dR > 1e-3
     with pytest.raises(InputError, match="thickness"):
         compare_slab(w, eps, exact, -1.0)
+
+
+def test_compare_slab_keeps_its_arrays_and_summary_block():
+    w = np.linspace(0.5, 6, 120)
+    eps = materials.rakic_ld(w)
+    shifted = model_from_terms(1.1, drude=[(np.sqrt(0.76) * 9.03, 0.053)])
+    c = compare_slab(w, eps, shifted, 40.0)
+    # the stored arrays are the Airy R/T (Born & Wolf 1999, sec. 1.6) of the two eps arrays,
+    # lambda = hc/E with hc = 1239.841984 eV nm (CODATA 2018)
+    lam = 1239.841984 / w
+    a = coherent_slab(np.sqrt(eps), 40.0, lam)
+    b = coherent_slab(np.sqrt(shifted.eps(w)), 40.0, lam)
+    np.testing.assert_allclose(c.energy_ev, w, rtol=0)
+    np.testing.assert_allclose(c.table_rt.R, a.R, rtol=1e-12)
+    np.testing.assert_allclose(c.table_rt.T, a.T, rtol=1e-12)
+    np.testing.assert_allclose(c.model_rt.R, b.R, rtol=1e-12)
+    np.testing.assert_allclose(c.model_rt.T, b.T, rtol=1e-12)
+    for arr in (c.energy_ev, c.table_rt.R, c.model_rt.T):
+        assert not arr.flags.writeable
+    # the maxima and their energies are those of the stored arrays
+    i = int(np.argmax(np.abs(b.T - a.T)))
+    assert c.max_dT == pytest.approx(abs(b.T[i] - a.T[i]), rel=1e-12)
+    assert c.at_dT_ev == w[i]
+    # the summary.json "slab" block (DESIGN.md machine-readable outputs), JSON-safe
+    d = c.to_dict()
+    assert list(d) == [
+        "thickness_nm",
+        "geometry",
+        "max_abs_dR",
+        "max_abs_dT",
+        "at_dR_ev",
+        "at_dT_ev",
+    ]
+    assert d["thickness_nm"] == 40.0 and d["geometry"] == "free-standing"
+    assert d["max_abs_dR"] == c.max_dR and d["at_dT_ev"] == c.at_dT_ev
+    bad = dataclasses.replace(c, max_dR=float("nan"), max_dT=-0.0)
+    assert bad.to_dict()["max_abs_dR"] is None
+    assert math.copysign(1.0, bad.to_dict()["max_abs_dT"]) == 1.0
+    json.dumps(bad.to_dict(), allow_nan=False)  # raises on NaN or infinity

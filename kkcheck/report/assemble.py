@@ -1,8 +1,10 @@
 """Turn a pipeline result into the report: figures, report.html and summary.md.
 
-This is the only place that knows both the stage result types and the report's plain-value
-interface (:mod:`kkcheck.report.figures`, :mod:`kkcheck.report.html`); the numerical stages
-never import it.
+This is the only place that knows both the stage result types and the report's interface
+(:mod:`kkcheck.report.figures` takes plain arrays, :mod:`kkcheck.report.html` and
+:mod:`kkcheck.report.markdown` a :class:`~kkcheck.report.context.ReportContext`); the
+numerical stages never import it. Nothing here recomputes a stage: the figures draw the
+arrays the stages kept (the KK reconstruction, the repair, the slab R/T).
 """
 
 from __future__ import annotations
@@ -13,192 +15,213 @@ from pathlib import Path
 import numpy as np
 
 from .._version import __version__
-from ..slab import coherent_slab
 from ..spectrum import Flag
-from ..units import HC_EV_NM
 from . import figures
-from .html import library_versions, write_html_report
+from .context import ReportContext, ReportFigure, library_versions
+from .html import write_html_report
 from .markdown import write_markdown_summary
 
-__all__ = ["report_context", "write_report"]
+__all__ = ["report_context", "report_figures", "write_report"]
+
+#: KK note codes (:attr:`kkcheck.kk.consistency.KKTestResult.note_codes`) left out of the
+#: cautions because the report states them in its standard cautions.
+_NOTES_SHOWN_ELSEWHERE = frozenset({"constant_offset"})
+
+#: Flagging threshold of the residual figure and the KK section [sigma].
+_Z_THRESHOLD = 3.0
 
 
-def _figures(result, fig_dir: Path) -> list[dict]:
-    fig_dir.mkdir(parents=True, exist_ok=True)
-    out = []
+def _data_figures(result, fig_dir: Path) -> list[ReportFigure]:
     summary = result.summary
     sources = [
         {"name": d.name, "energy_ev": d.energy_ev, "eps1": d.eps.real, "eps2": d.eps.imag}
         for d in result.datasets
     ]
-    out.append(
-        {
-            "path": figures.plot_sources(
-                fig_dir / "sources", sources, summary["outliers"], summary["merge"]["gaps_ev"]
-            ),
-            "title": "Sources as read",
-            "caption": "Every source as read (converted to eps, exp(-iwt)), before any scale "
-            "correction; flagged spikes (x) and steps (dashed) marked, gaps hatched.",
-        }
+    path = figures.plot_sources(
+        fig_dir / "sources", sources, summary["outliers"], summary["merge"]["gaps_ev"]
     )
-    spec = result.analysed
-    kk = result.kk
-    regions = summary["kk"]["regions"]
-    out.append(
-        {
-            "path": figures.plot_kk(
-                fig_dir / "kk_reconstruction",
-                spec.energy_ev,
-                spec.eps.real,
-                spec.eps.imag,
-                kk.eps1_model,
-                kk.eps2_model,
-                regions,
-                kk.verdict,
-            ),
-            "title": "Kramers–Kronig reconstruction",
-            "caption": "Merged data against the KK-consistent reconstruction (nonnegative "
+    return [
+        ReportFigure(
+            path,
+            "Every source as read (converted to eps, exp(-iwt)), before any scale "
+            "correction; flagged spikes (x) and steps (dashed) marked, gaps hatched.",
+            "Sources as read",
+        )
+    ]
+
+
+def _kk_figures(result, fig_dir: Path) -> list[ReportFigure]:
+    spec, kk = result.analysed, result.kk
+    regions = result.summary["kk"]["regions"]
+    kk_png = figures.plot_kk(
+        fig_dir / "kk_reconstruction",
+        spec.energy_ev,
+        spec.eps.real,
+        spec.eps.imag,
+        kk.eps1_model,
+        kk.eps2_model,
+        regions,
+        kk.verdict,
+    )
+    res_png = figures.plot_residuals(
+        fig_dir / "kk_residuals", spec.energy_ev, kk.resid1, kk.resid2, _Z_THRESHOLD, regions
+    )
+    return [
+        ReportFigure(
+            kk_png,
+            "Merged data against the KK-consistent reconstruction (nonnegative "
             "piecewise-linear eps2 basis extending beyond the window); inconsistent regions "
             "shaded.",
-        }
+            "Kramers–Kronig reconstruction",
+        ),
+        ReportFigure(
+            res_png,
+            "(data − reconstruction)/σ for eps1 and eps2, with the ±3σ lines.",
+            "Normalised residuals",
+        ),
+    ]
+
+
+def _repair_figure(result, fig_dir: Path) -> ReportFigure:
+    rep, spec = result.repair, result.analysed
+    changed = (np.asarray(rep.flags) & int(Flag.REPLACED | Flag.FILLED)) != 0
+    path = figures.plot_repaired(
+        fig_dir / "repaired",
+        rep.energy_ev,
+        rep.eps,
+        rep.sigma_eps1,
+        rep.sigma_eps2,
+        changed,
+        spec.energy_ev,
+        spec.eps,
     )
+    return ReportFigure(
+        path,
+        "KK-consistent repair with its ±1σ band; replaced and filled points "
+        "circled, raw merged data in grey.",
+        "Repaired spectrum",
+    )
+
+
+def _slab_figure(slab, fig_dir: Path) -> ReportFigure:
+    d = slab.thickness_nm
+    t, m = slab.table_rt, slab.model_rt
+    path = figures.plot_slab(fig_dir / "slab", slab.energy_ev, t.R, t.T, m.R, m.T, d)
+    where = "free-standing " if slab.geometry == "free-standing" else ""
+    on = "" if slab.geometry == "free-standing" else " on its substrate"
+    return ReportFigure(
+        path,
+        f"Normal-incidence R and T of a {where}{d:g} nm film{on} "
+        "computed from the repaired data and from the model.",
+        "What the fit error does to a film",
+    )
+
+
+def _model_figures(result, fig_dir: Path) -> list[ReportFigure]:
+    f = result.fit
+    e = np.asarray(result.repair.energy_ev)
+    out = [
+        ReportFigure(
+            figures.plot_fit(fig_dir / "fit", e, result.repair.eps, f.model.eps(e), f.range_ev),
+            "The fitted pole-pair model and its relative error over the fitted range.",
+            "Pole-pair model against the data",
+        )
+    ]
+    wide = np.geomspace(1e-3, 1e3, 2000)
     out.append(
-        {
-            "path": figures.plot_residuals(
-                fig_dir / "kk_residuals", spec.energy_ev, kk.resid1, kk.resid2, 3.0, regions
-            ),
-            "title": "Normalised residuals",
-            "caption": "(data − reconstruction)/σ for eps1 and eps2, with the ±3σ lines.",
-        }
+        ReportFigure(
+            figures.plot_passivity(fig_dir / "passivity", wide, f.model.eps(wide).imag, f.range_ev),
+            "eps2 of the model from 1 meV to 1 keV; any negative value (gain) "
+            "would be filled red. The certificate covers the whole axis.",
+            "Passivity at a glance",
+        )
     )
-    if result.repair is not None:
-        rep = result.repair
-        changed = (np.asarray(rep.flags) & int(Flag.REPLACED | Flag.FILLED)) != 0
-        out.append(
-            {
-                "path": figures.plot_repaired(
-                    fig_dir / "repaired",
-                    rep.energy_ev,
-                    rep.eps,
-                    rep.sigma_eps1,
-                    rep.sigma_eps2,
-                    changed,
-                    spec.energy_ev,
-                    spec.eps,
-                ),
-                "title": "Repaired spectrum",
-                "caption": "KK-consistent repair with its ±1σ band; replaced and filled points "
-                "circled, raw merged data in grey.",
-            }
-        )
-    if result.fit is not None:
-        f = result.fit
-        e = np.asarray(result.repair.energy_ev)
-        out.append(
-            {
-                "path": figures.plot_fit(
-                    fig_dir / "fit", e, result.repair.eps, f.model.eps(e), f.range_ev
-                ),
-                "title": "Pole-pair model against the data",
-                "caption": "The fitted pole-pair model and its relative error over the fitted "
-                "range.",
-            }
-        )
-        wide = np.geomspace(1e-3, 1e3, 2000)
-        out.append(
-            {
-                "path": figures.plot_passivity(
-                    fig_dir / "passivity", wide, f.model.eps(wide).imag, f.range_ev
-                ),
-                "title": "Passivity at a glance",
-                "caption": "eps2 of the model from 1 meV to 1 keV; any negative value (gain) "
-                "would be filled red. The certificate covers the whole axis.",
-            }
-        )
-        if result.slab is not None:
-            lo, hi = f.range_ev
-            inside = (e >= lo) & (e <= hi)
-            ee = e[inside]
-            lam = HC_EV_NM / ee
-            d = result.slab.thickness_nm
-            a = coherent_slab(np.sqrt(result.repair.eps[inside]), d, lam)
-            b = coherent_slab(np.sqrt(f.model.eps(ee)), d, lam)
-            out.append(
-                {
-                    "path": figures.plot_slab(fig_dir / "slab", ee, a.R, a.T, b.R, b.T, d),
-                    "title": "What the fit error does to a film",
-                    "caption": f"Normal-incidence R and T of a free-standing {d:g} nm film "
-                    "computed from the repaired data and from the model.",
-                }
-            )
+    if result.slab is not None:
+        out.append(_slab_figure(result.slab, fig_dir))
     return out
 
 
-def report_context(result, figure_list, *, command: str = "") -> dict:
-    """The plain dict that :func:`kkcheck.report.html.write_html_report` reads."""
-    s = result.summary
-    ctx = {
-        "title": result.options.title,
-        "version": __version__,
-        "inputs": s["inputs"],
-        "convention": s["convention"],
-        "merge": s["merge"],
-        "outliers": s["outliers"],
-        "kk": {**s["kk"], "threshold": 3.0},
-        "sum_rules": _sum_rule_rows(result.sum_rules),
-        "figures": [{**f, "path": str(f["path"])} for f in figure_list],
-        "cautions": [n for n in s["kk"].get("notes", []) if not n.startswith("a constant offset")]
-        + [w.split(": ", 1)[-1] for w in s.get("warnings", [])],
-        "provenance": {
-            "command": command or " ".join(sys.argv),
-            "versions": library_versions(),
-            "parameters": s["parameters"],
-            "date_utc": s.get("created_utc"),
-        },
-    }
-    for c in s.get("step_corrections", []):
-        side = "higher" if c["kept_side"] == "below" else "lower"
-        if not c["applied"]:
-            ctx["cautions"].append(
-                f"Possible step in '{c['source']}' at {c['energy_ev']:.4g} eV "
-                f"({c['component']} jumps {c['jump']:+.4g}): {c['reason']}."
-            )
-            continue
-        ctx["cautions"].append(
-            f"Detector-changeover step in '{c['source']}' at {c['energy_ev']:.4g} eV: "
-            f"{c['component']} jumps {c['jump']:+.4g} ({100 * c['relative']:+.1f} %); "
-            f"{c['points_shifted']} points on the {side}-energy side were shifted to match "
-            f"({c['reason']}). The KK test, repair and fit use the shifted values; the "
-            "sources figure shows them as measured."
+def report_figures(result, fig_dir) -> list[ReportFigure]:
+    """Draw every figure of ``result`` (a :class:`kkcheck.pipeline.JobResult`) into ``fig_dir``.
+
+    Returns
+    -------
+    list of ReportFigure
+        In report order: sources, KK reconstruction, residuals, and when present the repair,
+        the fit, passivity and the slab check.
+    """
+    fig_dir = Path(fig_dir)
+    fig_dir.mkdir(parents=True, exist_ok=True)
+    out = _data_figures(result, fig_dir) + _kk_figures(result, fig_dir)
+    if result.repair is not None:
+        out.append(_repair_figure(result, fig_dir))
+    if result.fit is not None:
+        out.extend(_model_figures(result, fig_dir))
+    return out
+
+
+def _kk_cautions(result) -> list[str]:
+    """The KK test's notes, except those the standard cautions already state (by code)."""
+    kk = result.kk
+    out = [n for n, c in zip(kk.notes, kk.note_codes) if c not in _NOTES_SHOWN_ELSEWHERE]
+    # summary.json lists the test's own notes first, then what the pipeline adds (binning)
+    out += list(result.summary["kk"].get("notes", [])[len(kk.notes) :])
+    return out
+
+
+def _step_caution(c: dict) -> str:
+    if not c["applied"]:
+        return (
+            f"Possible step in '{c['source']}' at {c['energy_ev']:.4g} eV "
+            f"({c['component']} jumps {c['jump']:+.4g}): {c['reason']}."
         )
+    side = "higher" if c["kept_side"] == "below" else "lower"
+    return (
+        f"Detector-changeover step in '{c['source']}' at {c['energy_ev']:.4g} eV: "
+        f"{c['component']} jumps {c['jump']:+.4g} ({100 * c['relative']:+.1f} %); "
+        f"{c['points_shifted']} points on the {side}-energy side were shifted to match "
+        f"({c['reason']}). The KK test, repair and fit use the shifted values; the "
+        "sources figure shows them as measured."
+    )
+
+
+def _cautions(result) -> list[str]:
+    """Every run-specific caution, in report order."""
+    s = result.summary
+    out = _kk_cautions(result)
+    # JobResult.warnings are "<category>: <message>"; the report shows the message
+    out += [w.split(": ", 1)[-1] for w in result.warnings]
+    out += [_step_caution(c) for c in s.get("step_corrections", [])]
     suspect = s["merge"].get("suspect_source")
     if suspect:
-        ctx["cautions"].append(
+        out.append(
             f"KK consistency points at source '{suspect}' as the one that is off "
             "(see merge.reference_ranking in summary.json)."
         )
-    if result.repair is not None:
-        ctx["repair"] = {
-            "points": len(result.repair.energy_ev),
-            "values changed": len(result.repair.changes),
-            **{f"note {i + 1}": n for i, n in enumerate(result.repair.notes)},
-        }
-    if result.model is not None:
-        from ..rational.model import physical_terms
-
-        model = dict(result.model)
-        model["equivalents"] = [
-            {"kind": t.kind, **t.as_dict()} for t in physical_terms(result.fit.model)
-        ]
-        ctx["model"] = model
     if result.fit is not None and result.kk.regions:
-        ctx["cautions"].append(
+        out.append(
             "The model was fitted with the KK-inconsistent regions weighing 1/100: a pole-pair "
             "model is KK consistent by construction and cannot follow them there."
         )
-    if "slab" in s:
-        ctx["slab"] = s["slab"]
-    return ctx
+    return out
+
+
+def _repair_rows(rep) -> dict:
+    return {
+        "points": len(rep.energy_ev),
+        "values changed": len(rep.changes),
+        **{f"note {i + 1}": n for i, n in enumerate(rep.notes)},
+    }
+
+
+def _model_block(result) -> dict:
+    from ..rational.model import physical_terms
+
+    model = dict(result.model)
+    model["equivalents"] = [
+        {"kind": t.kind, **t.as_dict()} for t in physical_terms(result.fit.model)
+    ]
+    return model
 
 
 def _sum_rule_rows(r) -> dict:
@@ -212,13 +235,48 @@ def _sum_rule_rows(r) -> dict:
     }
 
 
+def report_context(result, figure_list=(), *, command: str = "") -> ReportContext:
+    """The :class:`ReportContext` of ``result`` (a :class:`kkcheck.pipeline.JobResult`).
+
+    Parameters
+    ----------
+    result : kkcheck.pipeline.JobResult
+    figure_list : sequence of ReportFigure (or mappings with ``path``, ``caption``, ``title``)
+        The figures to embed, e.g. from :func:`report_figures`.
+    command : str
+        The command line recorded in the provenance; default ``sys.argv`` joined.
+    """
+    s = result.summary
+    return ReportContext(
+        title=result.options.title,
+        version=__version__,
+        inputs=s["inputs"],
+        convention=s["convention"],
+        merge=s["merge"],
+        outliers=s["outliers"],
+        kk={**s["kk"], "threshold": _Z_THRESHOLD},
+        sum_rules=_sum_rule_rows(result.sum_rules),
+        repair=_repair_rows(result.repair) if result.repair is not None else None,
+        model=_model_block(result) if result.model is not None else None,
+        slab=result.slab.to_dict() if result.slab is not None else None,
+        figures=tuple(figure_list),
+        cautions=tuple(_cautions(result)),
+        provenance={
+            "command": command or " ".join(sys.argv),
+            "versions": library_versions(),
+            "parameters": s["parameters"],
+            "date_utc": s.get("created_utc"),
+        },
+    )
+
+
 def write_report(result, out_dir, *, command: str = "") -> list[Path]:
     """Write figures/ (PNG and PDF), report.html and summary.md into ``out_dir``."""
     out = Path(out_dir)
-    figs = _figures(result, out / "figures")
+    figs = report_figures(result, out / "figures")
     ctx = report_context(result, figs, command=command)
-    files = [Path(f["path"]) for f in figs]
-    files += [Path(f["path"]).with_suffix(".pdf") for f in figs]
+    files = [f.path for f in figs]
+    files += [f.path.with_suffix(".pdf") for f in figs]
     files.append(write_html_report(out / "report.html", ctx))
     files.append(write_markdown_summary(out / "summary.md", ctx))
     return files

@@ -1,9 +1,9 @@
 """A short Markdown summary of a kkcheck run, fit for a paper's supplementary material.
 
-It reads the same context dict as :func:`kkcheck.report.html.write_html_report` (keys in that
-module's docstring) and states what was done, the verdict with its key numbers, the model
-table and the range caution. User strings are escaped so that they cannot break a table or
-start Markdown/HTML markup.
+It reads the same :class:`~kkcheck.report.context.ReportContext` as
+:func:`kkcheck.report.html.write_html_report` and states what was done, the verdict with its
+key numbers, the model table and the range caution. User strings are escaped so that they
+cannot break a table or start Markdown/HTML markup.
 """
 
 from __future__ import annotations
@@ -12,15 +12,16 @@ import re
 from collections.abc import Mapping
 from pathlib import Path
 
-from .html import (
-    _cautions,
-    _fmt,
-    _key_numbers,
-    _pair_rows,
-    _range,
-    _source_rows,
-    _verdict_word,
-    _write_document,
+from .context import ReportContext
+from .format import (
+    all_cautions,
+    fmt,
+    fmt_range,
+    key_numbers,
+    pair_rows,
+    source_rows,
+    verdict_word,
+    write_document,
 )
 
 __all__ = ["write_markdown_summary", "build_markdown"]
@@ -42,38 +43,26 @@ def _md_table(headers, rows) -> list[str]:
     return lines
 
 
-def build_markdown(context: Mapping) -> str:
-    """The summary as a Markdown string (see :mod:`kkcheck.report.html` for ``context``)."""
-    if not isinstance(context, Mapping):
-        raise ValueError("context must be a mapping (dict)")
-    ctx = context
-    version = ctx.get("version")
-    if not version:
-        from .._version import __version__ as version
-    kk = ctx.get("kk") or {}
-    model = ctx.get("model") or {}
-    title = "Optical-constant vetting"
-    if ctx.get("material"):
-        title += f": {_m(ctx['material'])}"
-    lines = [f"# {title}", ""]
-
-    # what was done
-    sources = _source_rows(ctx)
+def _done(ctx: ReportContext) -> list[str]:
+    """The sentences of "What was done", in pipeline order."""
+    kk = ctx.kk or {}
+    model = ctx.model or {}
+    sources = source_rows(ctx)
     done = []
     if sources:
         listed = "; ".join(
-            f"{_m(s['name'])} ({_m(_range(s['range_ev']))}, {_m(_fmt(s['points']))} points)"
+            f"{_m(s['name'])} ({_m(fmt_range(s['range_ev']))}, {_m(fmt(s['points']))} points)"
             for s in sources
         )
         done.append(
             f"{len(sources)} source(s) were read and merged onto one photon-energy axis: {listed}."
         )
-    gaps = (ctx.get("merge") or {}).get("gaps_ev") or ()
+    gaps = (ctx.merge or {}).get("gaps_ev") or ()
     if gaps:
-        done.append("Uncovered gaps: " + ", ".join(_m(_range(g)) for g in gaps) + ".")
-    if "outliers" in ctx:
+        done.append("Uncovered gaps: " + ", ".join(_m(fmt_range(g)) for g in gaps) + ".")
+    if ctx.outliers is not None:
         done.append(
-            f"Outlier screening flagged {len(ctx.get('outliers') or ())} point(s); "
+            f"Outlier screening flagged {len(ctx.outliers)} point(s); "
             "flagged points were kept and marked, not deleted."
         )
     if kk:
@@ -82,34 +71,32 @@ def build_markdown(context: Mapping) -> str:
             f"The real and imaginary parts were tested against each other with the "
             f"Kramers–Kronig relations{method}."
         )
-    if ctx.get("repair"):
+    if ctx.repair:
         done.append("A Kramers–Kronig-consistent repair was computed with its uncertainty.")
     if model:
         done.append(
             f"A rational model of {len(model.get('pairs') or ())} complex-conjugate pole "
-            f"pair(s) was fitted over {_m(_range(model.get('range_ev')))}"
+            f"pair(s) was fitted over {_m(fmt_range(model.get('range_ev')))}"
             + (", and certified passive" if (model.get("passivity") or {}).get("certified") else "")
             + "."
         )
-    if ctx.get("slab"):
+    if ctx.slab:
         done.append(
             f"Slab reflectance and transmittance (thickness "
-            f"{_m(_fmt((ctx.get('slab') or {}).get('thickness_nm')))} nm) were compared "
+            f"{_m(fmt(ctx.slab.get('thickness_nm')))} nm) were compared "
             "between data and model."
         )
-    lines += ["## What was done", ""]
-    lines += [f"- {d}" for d in done] or ["- Nothing beyond reading the inputs."]
-    lines.append(f"- Software: kkcheck {_m(version)}.")
-    lines.append("")
+    return done
 
-    # verdict
-    word = _verdict_word(ctx)
-    lines += ["## Verdict", "", f"**{_m(word)}**", ""]
-    nums = _key_numbers(ctx)
+
+def _verdict(ctx: ReportContext) -> list[str]:
+    """The verdict word, the key numbers and the flagged regions."""
+    lines = ["## Verdict", "", f"**{_m(verdict_word(ctx))}**", ""]
+    nums = key_numbers(ctx)
     if nums:
         lines += _md_table(["quantity", "value"], [[_m(k), _m(v)] for k, v in nums])
         lines.append("")
-    regions = kk.get("regions") or ()
+    regions = (ctx.kk or {}).get("regions") or ()
     if regions:
         lines.append("Flagged regions:")
         lines.append("")
@@ -117,74 +104,102 @@ def build_markdown(context: Mapping) -> str:
             ["from [eV]", "to [eV]", "component", "severity"],
             [
                 [
-                    _m(_fmt(r.get("from_ev"))),
-                    _m(_fmt(r.get("to_ev"))),
-                    _m(_fmt(r.get("component"))),
-                    _m(_fmt(r.get("severity"))),
+                    _m(fmt(r.get("from_ev"))),
+                    _m(fmt(r.get("to_ev"))),
+                    _m(fmt(r.get("component"))),
+                    _m(fmt(r.get("severity"))),
                 ]
                 for r in regions
             ],
         )
         lines.append("")
+    return lines
 
-    # model
-    if model:
-        lines += ["## Model", ""]
-        lines.append(
-            "eps(w) = eps_inf + sum_p [c_p/(s - a_p) + conj(c_p)/(s - conj(a_p))], s = -i w, "
-            "time dependence exp(-i w t), w, a_p, c_p in eV; "
-            f"eps_inf = {_m(_fmt(model.get('eps_inf'), 8))}."
+
+def _model(model: Mapping) -> list[str]:
+    """The model form, eps_inf and the pole-pair table (8 significant digits)."""
+    lines = ["## Model", ""]
+    lines.append(
+        "eps(w) = eps_inf + sum_p [c_p/(s - a_p) + conj(c_p)/(s - conj(a_p))], s = -i w, "
+        "time dependence exp(-i w t), w, a_p, c_p in eV; "
+        f"eps_inf = {_m(fmt(model.get('eps_inf'), 8))}."
+    )
+    lines.append("")
+    rows = pair_rows(model)
+    if rows:
+        lines += _md_table(
+            [
+                "pair",
+                "Re a [eV]",
+                "Im a [eV]",
+                "Re c [eV]",
+                "Im c [eV]",
+                "\\|a\\| [eV]",
+                "-2 Re a [eV]",
+                "static Δε",
+            ],
+            [
+                [
+                    r["index"],
+                    fmt(r["pole"].real, 8),
+                    fmt(r["pole"].imag, 8),
+                    fmt(r["residue"].real, 8),
+                    fmt(r["residue"].imag, 8),
+                    fmt(r["resonance_ev"]),
+                    fmt(r["damping_ev"]),
+                    fmt(r["static"]),
+                ]
+                for r in rows
+            ],
         )
         lines.append("")
-        rows = _pair_rows(model)
-        if rows:
-            lines += _md_table(
-                [
-                    "pair",
-                    "Re a [eV]",
-                    "Im a [eV]",
-                    "Re c [eV]",
-                    "Im c [eV]",
-                    "\\|a\\| [eV]",
-                    "-2 Re a [eV]",
-                    "static Δε",
-                ],
-                [
-                    [
-                        r["index"],
-                        _fmt(r["pole"].real, 8),
-                        _fmt(r["pole"].imag, 8),
-                        _fmt(r["residue"].real, 8),
-                        _fmt(r["residue"].imag, 8),
-                        _fmt(r["resonance_ev"]),
-                        _fmt(r["damping_ev"]),
-                        _fmt(r["static"]),
-                    ]
-                    for r in rows
-                ],
-            )
-            lines.append("")
+    return lines
 
-    # cautions
+
+def build_markdown(context: ReportContext | Mapping) -> str:
+    """The summary as a Markdown string.
+
+    Parameters
+    ----------
+    context : ReportContext or mapping
+        What to summarise (a mapping with the field names as keys is converted).
+
+    Returns
+    -------
+    str
+        Markdown text: what was done, verdict, model, range and limits.
+    """
+    ctx = ReportContext.coerce(context)
+    title = "Optical-constant vetting"
+    if ctx.material:
+        title += f": {_m(ctx.material)}"
+    lines = [f"# {title}", ""]
+    lines += ["## What was done", ""]
+    lines += [f"- {d}" for d in _done(ctx)] or ["- Nothing beyond reading the inputs."]
+    lines.append(f"- Software: kkcheck {_m(ctx.version)}.")
+    lines.append("")
+    lines += _verdict(ctx)
+    if ctx.model:
+        lines += _model(ctx.model)
     lines += ["## Range and limits", ""]
-    lines += [f"- {_m(c)}" for c in _cautions(ctx)]
+    lines += [f"- {_m(c)}" for c in all_cautions(ctx)]
     lines.append("")
     return "\n".join(lines)
 
 
-def write_markdown_summary(path, context: Mapping) -> Path:
+def write_markdown_summary(path, context: ReportContext | Mapping) -> Path:
     """Write the Markdown summary.
 
     Parameters
     ----------
     path : str or os.PathLike
-        Output file (parent directories are created).
-    context : dict
-        Report content; keys in :mod:`kkcheck.report.html`.
+        Output file (parent directories are created; written atomically).
+    context : ReportContext or mapping
+        Report content, as for :func:`build_markdown`.
 
     Returns
     -------
     pathlib.Path
         The written file.
     """
-    return _write_document(path, build_markdown(context))
+    return write_document(path, build_markdown(context))
