@@ -369,8 +369,8 @@ class _Progress:
 def _kk_score(options_kk, max_points: int = JobOptions.max_points) -> Callable[[Spectrum], float]:
     """KK chi2/dof of a trial merge, binned like the main test (the dense fit is M^2 in memory:
     unbinned, two 5000-point sources took 4.6 GB and minutes per trial)."""
-    from .clean import bin_spectrum
     from .clean import clean as _clean
+    from .kk.binning import bin_spectrum
     from .kk.consistency import kk_test
 
     def score(spectrum: Spectrum) -> float:
@@ -426,7 +426,7 @@ def analyse(
             )
         say("finding spikes, steps and noise")
         cleaned = clean_stage(merged.spectrum, policy="keep")
-        from .clean import bin_spectrum
+        from .kk.binning import bin_spectrum
 
         corrections: tuple = ()
         kk = None
@@ -505,7 +505,8 @@ def _level_steps_if_consistent(cleaned, steps, options: JobOptions, kk_opts):
     test drops. Returns (clean result, corrections incl. rejected ones, KK result of the
     accepted spectrum).
     """
-    from .clean import bin_spectrum, level_steps
+    from .clean import level_steps
+    from .kk.binning import bin_spectrum
     from .kk.consistency import kk_test
 
     def test(spectrum):

@@ -3,8 +3,9 @@
 import numpy as np
 import pytest
 
-from kkcheck.clean import bin_spectrum, clean
+from kkcheck.clean import clean
 from kkcheck.kk import kk_test
+from kkcheck.kk.binning import bin_spectrum
 from kkcheck.materials import lorentz
 from kkcheck.spectrum import Dataset, Flag, Spectrum
 from kkcheck.units import EV_PER_INV_CM
@@ -25,6 +26,7 @@ def test_small_spectra_are_untouched():
     sp = _ftir(500)
     out, rec = bin_spectrum(sp, 3000)
     assert out is sp and rec.points_in == rec.points_out == 500
+    assert rec.note() is None  # nothing to say when nothing was binned
 
 
 def test_bins_average_smooth_stretches_and_keep_sharp_ones():
@@ -39,6 +41,10 @@ def test_bins_average_smooth_stretches_and_keep_sharp_ones():
     i = big[len(big) // 2]
     ratio = out.sigma_eps1[i] / np.median(sp.sigma_eps1)
     assert ratio == pytest.approx(1 / np.sqrt(6), rel=0.3)
+    # the note states the counts of the record (points in, out, bin size, kept points)
+    assert rec.note().startswith(f"6000 points were binned to {rec.points_out} for the test")
+    assert "up to 6 neighbours averaged" in rec.note()
+    assert f"{rec.kept_sharp} points at sharp features" in rec.note()
     # flagged points survive as themselves
     assert np.count_nonzero(out.flags & int(Flag.SPIKE)) == np.count_nonzero(
         sp.flags & int(Flag.SPIKE)

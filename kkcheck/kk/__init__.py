@@ -14,9 +14,9 @@ Consistency test (KK-constrained basis fit, Kuzmenko 2005)
     kk_test, KKTestOptions, KKTestResult, Region, spectrum_noise
 """
 
+from ..noise import spectrum_noise
 from .consistency import KKTestOptions, KKTestResult, Region, kk_test
 from .kernels import pl_kk_matrix, pl_kk_matrix_eps1_to_eps2
-from .noise import spectrum_noise
 from .subtractive import (
     SubtractiveResult,
     choose_anchors,

@@ -65,9 +65,9 @@ import numpy as np
 from scipy.ndimage import uniform_filter1d
 
 from ..errors import InputError
+from ..noise import spectrum_noise
 from ..spectrum import Flag, Spectrum
 from .basisfit import KKBasisModel, choose_nodes, fit_kk_basis, unsupported_nodes
-from .noise import spectrum_noise
 
 __all__ = ["KKTestOptions", "Region", "KKTestResult", "kk_test", "find_regions", "NOTE_CODES"]
 
