@@ -1,11 +1,16 @@
 """KK consistency test (kkcheck.kk.consistency) on published materials and planted faults.
 
 Every "true" dielectric function below is a closed-form, KK-consistent model from the
-literature (REFERENCES.md items 1, 6, 9); noise is planted with fixed seeds at two levels that
-bracket ellipsometry practice (0.002 and 0.01 in n and k; Johnson & Christy quote errors
-< 0.02, REFERENCES item 12). Faults are sized relative to the planted noise (15-25 sigma) so
-the same rule is checked at both levels.
+literature (Lorentz and Drude terms; Rakić et al., Appl. Opt. 37, 5271 (1998); Jellison &
+Modine, Appl. Phys. Lett. 69, 371 (1996); Malitson, J. Opt. Soc. Am. 55, 1205 (1965); see
+docs/references.md); noise is planted with fixed seeds at two levels that bracket
+ellipsometry practice (0.002 and 0.01 in n and k; Johnson & Christy, Phys. Rev. B 6, 4370
+(1972) quote errors < 0.02, docs/references.md [JohnsonChristy1972]). Faults are sized
+relative to the planted noise (15-25 sigma) so the same rule is checked at both levels.
 """
+
+import dataclasses
+import json
 
 import numpy as np
 import pytest
@@ -13,7 +18,7 @@ import pytest
 from kkcheck import materials as mat
 from kkcheck.errors import InputError
 from kkcheck.kk.basisfit import choose_nodes, design_matrices, tie_tolerance
-from kkcheck.kk.consistency import KKTestOptions, Region, find_regions, kk_test
+from kkcheck.kk.consistency import NOTE_CODES, KKTestOptions, Region, find_regions, kk_test
 from kkcheck.spectrum import Dataset, Flag, Spectrum
 from kkcheck.units import EV_PER_INV_CM, HC_EV_NM, eps_to_nk, nk_to_eps
 
@@ -39,7 +44,8 @@ def from_eps(e, eps, s1, s2, seed):
 
 
 def tauc_lorentz_asi(e):
-    # a-Si-like Tauc-Lorentz, A=122, E0=3.45, C=2.54, Eg=1.20 eV (REFERENCES item 9 check set)
+    # a-Si-like Tauc-Lorentz, A=122, E0=3.45, C=2.54, Eg=1.20 eV (Jellison & Modine 1996; the
+    # check set of docs/references.md [Jellison1996])
     return mat.tauc_lorentz(e, 122, 3.45, 2.54, 1.2, 1.0)
 
 
@@ -50,7 +56,7 @@ def two_oscillator(e):
 
 
 def drude_lorentz_metal(e):
-    # generic Drude-Lorentz metal (closed form, REFERENCES items 1 and 8)
+    # generic Drude-Lorentz metal (closed form, docs/references.md [ModelFormulas])
     return 1.5 + mat.drude(e, 7.0, 0.1) + mat.lorentz(e, 1.0, 3.5, 1.0)
 
 
@@ -59,15 +65,16 @@ def resonance(e):
 
 
 def clean_case(name, level):
-    if name == "rakic_au":  # Rakic 1998 Au, REFERENCES item 9, 300-1000 nm, Drude part included
+    if name == "rakic_au":  # Rakic et al. 1998 Au, 300-1000 nm, Drude part included
         e = grid_nm(300, 1000, 400)
         return from_nk(e, *eps_to_nk(mat.rakic_ld(e, mat.RAKIC_AU)), level, 1)
-    if name == "rakic_ag":  # Rakic 1998 Ag, REFERENCES item 9
+    if name == "rakic_ag":  # Rakic et al., Appl. Opt. 37, 5271 (1998) Ag
         e = grid_nm(300, 1000, 400)
         return from_nk(e, *eps_to_nk(mat.rakic_ld(e, mat.RAKIC_AG)), level, 2)
     if name == "silica":
-        # Malitson 1965 Sellmeier (REFERENCES item 9) plus a tiny Lorentz loss at 10 eV so eps2
-        # is small but positive (~1e-6 in the window); noise 10x smaller (glass ellipsometry)
+        # Malitson 1965 Sellmeier (J. Opt. Soc. Am. 55, 1205) plus a tiny Lorentz loss at 10 eV
+        # so eps2 is small but positive (~1e-6 in the window); noise 10x smaller (glass
+        # ellipsometry)
         e = grid_nm(250, 2000, 400)
         eps = mat.sellmeier_silica(e) + mat.lorentz(e, 1e-4, 10.0, 1.0)
         return from_nk(e, *eps_to_nk(eps), level / 10, 3)
@@ -119,7 +126,8 @@ def test_clean_materials_raise_no_alarm(name, level):
 
 @pytest.mark.parametrize("level", LEVELS)
 def test_rakic_gold_reconstruction_matches_published_value(level):
-    # REFERENCES item 9 [V]: Rakic Au at 600 nm, eps = -7.9881 + 2.0623i. The KK-consistent
+    # Rakic et al., Appl. Opt. 37, 5271 (1998) Au at 600 nm: eps = -7.9881 + 2.0623i, computed
+    # from the paper's parameters (docs/references.md [Rakic1998]). The KK-consistent
     # reconstruction from noisy data must land within a few noise sigma of it.
     r = kk_test(clean_case("rakic_au", level))
     e600 = HC_EV_NM / 600.0
@@ -234,7 +242,8 @@ def test_two_overlapping_sources_consistent():
 
 
 def test_basis_partner_matches_triangle_check_values():
-    # REFERENCES item 6 [V]: triangle (1.0, 1.3, 2.0), partner at w = 0.5, 1.2, 1.7, 3.0
+    # Kuzmenko, Rev. Sci. Instrum. 76, 083108 (2005) triangle basis (1.0, 1.3, 2.0), partner at
+    # w = 0.5, 1.2, 1.7, 3.0, values computed by quadrature (docs/references.md [Kuzmenko2005])
     b1, b2 = design_matrices([1.0, 1.3, 2.0], [], [0.5, 1.2, 1.7, 3.0])
     p = np.array([0.0, 0.0, 1.0, 0.0])  # eps_inf = 0, unit amplitude at the middle node
     np.testing.assert_allclose(
@@ -245,7 +254,8 @@ def test_basis_partner_matches_triangle_check_values():
 
 
 def test_drude_column_matches_closed_form():
-    # REFERENCES item 1 [V]: Drude wp = 1, gamma = 0.05: eps2(0.3) = 1.801802, eps2(1) = 0.049875
+    # Drude wp = 1, gamma = 0.05, closed form: eps2(0.3) = 1.801802, eps2(1) = 0.049875
+    # (computed check table, docs/references.md [KK-formulas])
     b1, b2 = design_matrices([1.0, 2.0], [0.05], [0.3, 1.0])
     p = np.array([1.0, 0.0, 0.0, 1.0])  # eps_inf 1, no basis, wp^2 = 1
     np.testing.assert_allclose(b2 @ p, [1.801802, 0.049875], atol=1e-6)
@@ -294,7 +304,8 @@ def test_noiseless_tables_use_the_floor_and_pass(name):
 
 
 def coarse_lorentz(e):
-    # closed-form Lorentz oscillator (REFERENCES item 1): FWHM 0.3 eV at 2 eV, eps2 peak ~13
+    # closed-form Lorentz oscillator (docs/references.md [ModelFormulas]): FWHM 0.3 eV at 2 eV,
+    # eps2 peak ~13
     return 1.5 + mat.lorentz(e, 2.0, 2.0, 0.3)
 
 
@@ -361,3 +372,68 @@ def test_tie_tolerance_is_noise_for_cubic_data_and_covers_a_coarse_peak():
         worst = max(worst, miss / 2e-3)
         assert miss < 3 * t[i]
     assert worst > 50  # the case really is coarse
+
+
+def test_refit_without_the_fault_recovers_the_closed_form():
+    # KKBasisModel.refit with the points of a planted k bump at weight 0: the model there is
+    # the prediction from the other data, within 3 sigma of the closed-form Lorentz resonance
+    # the data were made from; the fit to all points is pulled towards the bump (> 3 sigma)
+    sp, (lo, hi) = fault_case("k_bump", 0.01)
+    r = kk_test(sp)
+    e = sp.energy_ev
+    sel = (e >= lo) & (e <= hi)
+    true = resonance(e[sel])
+    args = (e, sp.eps, r.sigma_eps1, r.sigma_eps2)
+    dropped = r.model.refit(*args, np.where(sel, 0.0, 1.0))
+    kept = r.model.refit(*args, np.ones(e.size))
+    miss = np.abs(dropped.model.eps(e[sel]) - true)
+    assert np.all(miss.imag < 3 * r.sigma_eps2[sel])
+    assert np.all(miss.real < 3 * r.sigma_eps1[sel])
+    assert 0.6 < dropped.chi2 / dropped.dof < 2.0
+    pulled = np.abs(kept.model.eps(e[sel]).imag - true.imag) / r.sigma_eps2[sel]
+    assert pulled.max() > 3
+    # same basis: nodes, ties and Drude columns of the model it was called on
+    np.testing.assert_array_equal(dropped.model.nodes_ev, r.model.nodes_ev)
+    np.testing.assert_array_equal(dropped.model.tied, r.model.tied)
+
+
+def test_note_codes_follow_the_notes():
+    # a conductor (Drude-Lorentz closed form) measured with a gap: the result carries the two
+    # window notes, one per noise source, the gap and the Drude columns, each with its code
+    e = np.concatenate([np.linspace(0.5, 1.5, 150), np.linspace(2.5, 4.0, 150)])
+    r = kk_test(from_eps(e, drude_lorentz_metal(e), 0.01, 0.01, 31))
+    assert len(r.note_codes) == len(r.notes)
+    assert set(r.note_codes) <= set(NOTE_CODES)
+    codes = dict(zip(r.notes, r.note_codes, strict=True))
+    assert [c for n, c in codes.items() if n.startswith("a constant offset")] == ["constant_offset"]
+    assert [c for n, c in codes.items() if n.startswith("gap in the data")] == ["gap"]
+    assert [c for n, c in codes.items() if n.startswith("conductor")] == ["drude_columns"]
+    assert r.note_codes[:2] == ("constant_offset", "even_distortion")
+    with pytest.raises(ValueError, match="one code per note"):
+        dataclasses.replace(r, note_codes=r.note_codes[1:])
+
+
+def test_to_dict_is_the_summary_block():
+    # the kk block of summary.json (DESIGN.md contract): exactly these keys, the result's own
+    # values, regions as from_ev/to_ev/component/severity/label, JSON-safe (NaN -> None)
+    sp, _ = fault_case("k_bump", 0.01)
+    r = kk_test(sp, anchors_ev=[2.0])
+    d = r.to_dict()
+    assert list(d) == [
+        "method", "anchors_ev", "rms", "max", "noise", "chi2_dof", "verdict", "regions", "notes",
+    ]  # fmt: skip
+    assert d["method"] == "kk-basis-fit" and d["anchors_ev"] == [2.0]
+    assert (d["rms"], d["max"], d["noise"], d["chi2_dof"]) == (r.rms, r.max, r.noise, r.chi2_dof)
+    assert d["verdict"] == "inconsistent" and d["notes"] == list(r.notes)
+    assert d["regions"] == [
+        {
+            "from_ev": g.from_ev,
+            "to_ev": g.to_ev,
+            "component": g.component,
+            "severity": g.severity,
+            "label": g.label,
+        }
+        for g in r.regions
+    ]
+    json.dumps(d, allow_nan=False)
+    assert dataclasses.replace(r, rms=float("nan")).to_dict()["rms"] is None

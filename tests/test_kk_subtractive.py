@@ -1,4 +1,10 @@
-"""Singly and multiply subtractive KK against the check table of REFERENCES.md item 2."""
+"""Singly and multiply subtractive KK against a computed check table.
+
+The SSKK form is Ahrenkiel's (J. Opt. Soc. Am. 61, 1651 (1971), from memory), the MSKK form
+Palmer, Williams & Budde's (Appl. Opt. 37, 2660 (1998), from memory); the check case and its
+error table were computed by quadrature in the project (docs/references.md
+[SubtractiveCheck]), not taken from a paper.
+"""
 
 import numpy as np
 import pytest
@@ -16,7 +22,8 @@ W_TAB = np.array([0.9, 1.5, 1.8, 2.2])
 
 
 def _model(w):
-    # REFERENCES.md item 2 check case: strong oscillator at 4 eV lies outside [0.6, 2.5]
+    # check case of docs/references.md [SubtractiveCheck]: strong oscillator at 4 eV lies
+    # outside [0.6, 2.5]
     w = np.asarray(w, dtype=float)
     return 1.0 + 2.0 / (1.0 - w**2 - 0.1j * w) + 48.0 / (16.0 - w**2 - 0.5j * w)
 
@@ -29,19 +36,20 @@ E2 = _model(X).imag
 
 
 def test_plain_truncated_kk_error_table():
-    # REFERENCES.md item 2 [V]: plain KK error = (1 + partner) - true eps1 (eps_inf = 1)
+    # computed table (quadrature): plain KK error = (1 + partner) - true eps1 (eps_inf = 1)
     err = 1.0 + eps2_to_eps1(X, E2, W_TAB) - _model(W_TAB).real
     np.testing.assert_allclose(err, [-2.918, -3.283, -3.578, -4.227], atol=1e-2)
 
 
 def test_sskk_error_table():
-    # REFERENCES.md item 2 [V]: SSKK with the anchor 1.2 eV
+    # computed table (quadrature): SSKK (Ahrenkiel 1971) with the anchor 1.2 eV
     got = subtractive_eps1(X, E2, [1.2], [_model(1.2).real], W_TAB)
     np.testing.assert_allclose(got - _model(W_TAB).real, [0.157, -0.208, -0.503, -1.151], atol=1e-2)
 
 
 def test_mskk_error_table_and_improvement():
-    # REFERENCES.md item 2 [V]: MSKK with anchors 1.2 and 2.0 eV; and the shape given there:
+    # computed table (quadrature): MSKK (Palmer et al. 1998) with anchors 1.2 and 2.0 eV; and
+    # the shape given with it:
     # MSKK error below 0.13 where the plain KK error exceeds 2.9
     anchors = np.array([2.0, 1.2])  # unsorted on purpose
     got = subtractive_eps1(X, E2, anchors, _model(anchors).real, W_TAB)
@@ -53,7 +61,7 @@ def test_mskk_error_table_and_improvement():
 
 
 def test_anchors_are_reproduced_and_result_fields():
-    # the subtractive relation interpolates the anchors exactly (REFERENCES.md item 2 formula)
+    # the subtractive relation interpolates the anchors exactly (Palmer et al. 1998 formula)
     anchors = np.array([1.0, 1.7, 2.3])
     vals = _model(anchors).real
     r = subtractive_result(X, E2, anchors, vals, anchors)
@@ -62,7 +70,8 @@ def test_anchors_are_reproduced_and_result_fields():
 
 
 def test_mskk_equals_explicit_subtractive_integral():
-    # REFERENCES.md item 2 [V] implementation identity: the Lagrange-polynomial form equals
+    # implementation identity ("unified framework" paper, docs/references.md [QSubtractive];
+    # computed): the Lagrange-polynomial form equals
     # the Q = 2 subtractive integral, evaluated here by scipy quad (QAWC) segment by segment
     # on the same PL eps2 (a coarse 97-node grid: the identity holds for any PL function)
     from scipy import integrate

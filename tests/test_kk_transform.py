@@ -5,6 +5,7 @@ import pytest
 from scipy import integrate
 
 from kkcheck.errors import InputError
+from kkcheck.kk.checks import check_axis, check_targets
 from kkcheck.kk.fastkk import pl_kink_sum_fast
 from kkcheck.kk.kernels import pl_kk_matrix, pl_kk_matrix_eps1_to_eps2
 from kkcheck.kk.transform import (
@@ -19,7 +20,8 @@ from kkcheck.units import HC_EV_NM, eps_to_nk
 
 
 def _lorentz_ref(w):
-    # REFERENCES.md item 1: eps = 1 + 1/(1 - w^2 - 0.1 i w)
+    # Lorentz check model eps = 1 + 1/(1 - w^2 - 0.1 i w) (closed form; docs/references.md
+    # [KK-formulas])
     return 1.0 + 1.0 / (1.0 - w**2 - 0.1j * w)
 
 
@@ -38,10 +40,11 @@ def _lorentz_grid():
 
 
 def test_lorentz_eps1_check_values_from_pl_eps2():
-    # REFERENCES.md item 1 [V] (closed form of the Lorentz oscillator, cross-checked by
-    # quadrature). Tolerance: the PL interpolant of eps2 differs from eps2 by at most
-    # h^2 max|eps2''| / 8 ~ 1e-8 * 4e3 / 8 = 5e-6 near the peak (h = 1e-4); its KK partner
-    # carries an error of that order (measured ~1e-5); truncation at 100 eV adds ~2e-8.
+    # closed form of the Lorentz oscillator, cross-checked by quadrature (computed values,
+    # docs/references.md [KK-formulas]). Tolerance: the PL interpolant of eps2 differs from
+    # eps2 by at most h^2 max|eps2''| / 8 ~ 1e-8 * 4e3 / 8 = 5e-6 near the peak (h = 1e-4);
+    # its KK partner carries an error of that order (measured ~1e-5); truncation at 100 eV
+    # adds ~2e-8.
     x = _lorentz_grid()
     w = np.array([0.5, 0.95, 1.0, 1.05, 2.0])
     got = eps2_to_eps1(x, _lorentz_ref(x).imag, w)
@@ -50,7 +53,8 @@ def test_lorentz_eps1_check_values_from_pl_eps2():
 
 
 def test_lorentz_n_k_pair_matches_closed_form():
-    # REFERENCES.md item 1: the same pair holds for n - 1 <-> k; reference is the closed-form
+    # the same KK pair holds for n - 1 <-> k (Wooten 1972, App. G; docs/references.md
+    # [KK-formulas]); reference is the closed-form
     # N = sqrt(eps) of the Lorentz model. Same discretisation tolerance as above.
     x = _lorentz_grid()
     n, k = eps_to_nk(_lorentz_ref(x))
@@ -61,16 +65,18 @@ def test_lorentz_n_k_pair_matches_closed_form():
 
 
 def test_triangle_basis_check_values():
-    # REFERENCES.md item 6 [V]: triangle (1.0, 1.3, 2.0), a 3-node PL eps2; exact closed form,
-    # so only rounding error remains.
+    # Kuzmenko, Rev. Sci. Instrum. 76, 083108 (2005) triangle (1.0, 1.3, 2.0), a 3-node PL
+    # eps2; values computed by quadrature (docs/references.md [Kuzmenko2005]); exact closed
+    # form, so only rounding error remains.
     got = eps2_to_eps1([1.0, 1.3, 2.0], [0.0, 1.0, 0.0], [0.5, 1.2, 1.7, 3.0, 1.0])
     want = [0.26270121, 0.67019032, -0.40386659, -0.06760530, 0.61336492]
     np.testing.assert_allclose(got, want, atol=1e-8)
 
 
 def test_tauc_lorentz_table_and_closed_form():
-    # REFERENCES.md item 9 [V] table (A=122, E0=3.45, C=2.54, Eg=1.20, eps_inf=0) and the
-    # closed-form eps1 of kkcheck.materials.tauc_lorentz (Jellison & Modine 1996 with erratum).
+    # Jellison & Modine, Appl. Phys. Lett. 69, 371 (1996) check table computed from the closed
+    # form (A=122, E0=3.45, C=2.54, Eg=1.20, eps_inf=0; docs/references.md [Jellison1996]) and
+    # the closed-form eps1 of kkcheck.materials.tauc_lorentz (Jellison & Modine 1996 with erratum).
     # eps2 ~ (E - Eg)^2 is smooth; PL error with h = 4.4e-4 is ~1e-7 and the truncation at
     # 2000 eV ~ 2/(3 pi) A E0 C / X^3 ~ 3e-8 -> tolerance 1e-5.
     x = np.unique(np.concatenate([np.linspace(1.2, 10.0, 20000), np.geomspace(10.0, 2000.0, 3000)]))
@@ -200,7 +206,8 @@ def test_auto_path_warns_and_stays_exact_when_window_spans_many_decades():
 
 
 def test_drude_dc_term_table():
-    # REFERENCES.md item 1 [V], Drude wp = 1, gamma = 0.05, sigma0/eps0 = wp^2/gamma = 20:
+    # Drude wp = 1, gamma = 0.05, sigma0/eps0 = wp^2/gamma = 20, computed check table
+    # (docs/references.md [KK-formulas]):
     # w = 0.3: exact eps2 1.801802 = 66.666667 - 64.864865; w = 1.0: 0.049875 = 20 - 19.950125.
     # Window [1e-9, 1e3]: the missing low end contributes ~ 800 x0/(pi w) ~ 1e-6; the
     # geometric grid (ratio 1.0005) has PL error h^2 max|f''| / 8 ~ 1e-5 at the knee w ~ gamma,
@@ -215,7 +222,8 @@ def test_drude_dc_term_table():
 
 
 def test_drude_metal_eps1_with_dc_term_removed():
-    # REFERENCES.md item 1: Drude eps1 - 1 = -wp^2/(w^2 + gamma^2) (closed form). Below the
+    # Drude eps1 - 1 = -wp^2/(w^2 + gamma^2) (closed form, docs/references.md [ModelFormulas]).
+    # Below the
     # window [1e-3, 1e3] eps2 is ~ sigma/w; extrapolating it so (dc_sigma_ev) leaves the
     # error of eps2 - sigma/w ~ -sigma w/gamma^2 below x0, ~ (2/pi) sigma x0^3/(3 gamma^2 w^2)
     # ~ 2e-5 at w = 0.3; the high-end truncation is (2/pi) sigma gamma^2 / (3 x_M^3) ~ 3e-11.
@@ -230,7 +238,8 @@ def test_drude_metal_eps1_with_dc_term_removed():
 
 def test_dc_sigma_from_low_energy_drude():
     # Drude closed form: 1/(E eps2) is linear in E^2 with intercept 1/sigma, sigma = wp^2/gamma
-    # = 20 (REFERENCES.md item 1); with a distant Lorentz term added the estimate stays close.
+    # = 20 (docs/references.md [ModelFormulas]); with a distant Lorentz term added the estimate
+    # stays close.
     x = np.linspace(0.01, 0.2, 40)
     assert dc_sigma_from_low_energy(x, drude(x, 1.0, 0.05).imag) == pytest.approx(20.0, rel=1e-9)
     e2 = (drude(x, 1.0, 0.05) + lorentz(x, 2.0, 3.0, 0.5)).imag
@@ -240,7 +249,8 @@ def test_dc_sigma_from_low_energy_drude():
 
 
 def test_end_values_are_log_singular_and_zero_ends_finite():
-    # closed form (REFERENCES.md item 3): only the end steps are singular
+    # closed form of the PL partner (derived in the project, docs/references.md
+    # [PLClosedForm]): only the end steps are singular
     out = eps2_to_eps1([1.0, 2.0], [1.0, 1.0])
     assert np.all(np.isinf(out))
     out = eps2_to_eps1([1.0, 1.5, 2.0], [0.0, 1.0, 0.0])
@@ -258,3 +268,27 @@ def test_input_validation_messages():
         eps2_to_eps1([1.0, 2.0], [0.0, 1.0], [-1.0])
     with pytest.raises(ValueError, match="method"):
         eps2_to_eps1([1.0, 2.0], [0.0, 1.0], method="fft")
+
+
+def test_shared_axis_checks():
+    # kkcheck.kk.checks is what the transforms, the subtractive KK and the sum rules all use:
+    # each bad input gives its one-line InputError, good input comes back as float arrays
+    x, y = check_axis([1, 2, 3], [0, 1, 0], "eps2")
+    assert x.dtype == float and y.dtype == float and list(y) == [0.0, 1.0, 0.0]
+    for bad_x, bad_y, text in (
+        ([1.0], [0.0], "at least 2 points"),
+        ([[1.0, 2.0]], [[0.0, 1.0]], "1-D"),
+        ([1.0, 2.0], [0.0], "eps2 with the same length"),
+        ([1.0, np.inf], [0.0, 1.0], "finite energies and eps2"),
+        ([0.0, 1.0], [0.0, 1.0], "> 0 eV, strictly increasing"),
+        ([2.0, 1.0], [0.0, 1.0], "> 0 eV, strictly increasing"),
+    ):
+        with pytest.raises(InputError, match=text):
+            check_axis(bad_x, bad_y, "eps2")
+    axis = np.array([1.0, 2.0])
+    w = check_targets(None, axis)
+    assert w is not axis and list(w) == [1.0, 2.0]
+    assert list(check_targets(3.0, axis)) == [3.0]
+    for bad in ([0.0], [np.nan], [[1.0, 2.0]]):
+        with pytest.raises(InputError, match="at_ev > 0 eV, finite, 1-D"):
+            check_targets(bad, axis)

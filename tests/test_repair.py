@@ -1,7 +1,8 @@
 """Repair stage (kkcheck.repair) against the closed-form material the data were made from.
 
 The "true" function is the Tauc–Lorentz a-Si-like model (Jellison & Modine 1996, closed-form
-eps1; REFERENCES item 9) or Rakić 1998 gold (REFERENCES item 9). Noise of 0.005 in n and k is
+eps1; docs/references.md [Jellison1996]) or Rakić et al. 1998 gold (Appl. Opt. 37, 5271;
+docs/references.md [Rakic1998]). Noise of 0.005 in n and k is
 planted with fixed seeds; its propagated size in eps is the closed form
 sigma_eps1 = 2 sqrt(n^2 + k^2) * 0.005 (kkcheck.units.sigma_nk_to_eps).
 """
@@ -93,7 +94,8 @@ def test_gap_filled_within_band_of_true_values():
 
 
 def test_user_grid_and_gold_published_value():
-    # Rakic 1998 Au (REFERENCES item 9 [V]): eps(600 nm) = -7.9881 + 2.0623i, eps(633 nm) =
+    # Rakic et al. 1998 Au, computed from the paper's parameters (docs/references.md
+    # [Rakic1998]): eps(600 nm) = -7.9881 + 2.0623i, eps(633 nm) =
     # -9.8114 + 1.9645i; a user grid at exactly those wavelengths gets the model there
     e = np.sort(HC_EV_NM / np.linspace(300, 1000, 300))
     sp, (s1, s2) = noisy_nk(e, mat.rakic_ld(e), 51)
@@ -153,6 +155,9 @@ def test_bad_input():
     kk = kk_test(sp)
     with pytest.raises(InputError, match="policy"):
         repair(sp, kk, policy="smooth")
+    # the error names every choice of kkcheck.options.RepairChoice
+    with pytest.raises(InputError, match="none, replace_flagged, replace_flagged_and_regions"):
+        repair(sp, kk, policy="smooth")
     with pytest.raises(InputError, match="grid_ev"):
         repair(sp, kk, grid_ev=[-1.0, 2.0])
     with pytest.raises(InputError, match="not computed from this spectrum"):
@@ -160,3 +165,13 @@ def test_bad_input():
     with pytest.warns(RuntimeWarning, match="outside the measured window"):
         repair(sp, kk, grid_ev=[0.5, 2.0])
     assert "model" in POLICIES
+
+
+def test_to_dict_is_the_summary_block(spiked):
+    # the repair block of summary.json: grid points, changed values (5 spikes x 2 components,
+    # no gap to fill) and the notes
+    sp, idx, _, _ = spiked
+    r = repair(sp, kk_test(sp))
+    d = r.to_dict()
+    assert d == {"points": len(sp), "changed": 2 * idx.size, "notes": list(r.notes)}
+    assert d["notes"][0] == "policy 'replace_flagged'"

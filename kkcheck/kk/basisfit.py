@@ -39,9 +39,11 @@ outside nodes absorb, so such distortions of eps1 are not detectable either.
 References
 ----------
 .. [1] A. B. Kuzmenko, "Kramers–Kronig constrained variational analysis of optical spectra,"
-   Rev. Sci. Instrum. 76, 083108 (2005).
+   Rev. Sci. Instrum. 76, 083108 (2005); see docs/references.md [Kuzmenko2005].
 .. [2] C. L. Lawson, R. J. Hanson, *Solving Least Squares Problems*, Prentice-Hall (1974),
-   ch. 23 (nonnegative least squares; the fallback is scipy's bounded-variable variant).
+   ch. 23 (from memory; nonnegative least squares; the fallback is scipy's bounded-variable
+   variant); see
+   docs/references.md [LawsonHanson1974].
 """
 
 from __future__ import annotations

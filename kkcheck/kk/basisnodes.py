@@ -15,9 +15,11 @@ nodes, within a tolerance (:func:`tie_tolerance`) that includes the cubic's own 
 References
 ----------
 .. [1] A. B. Kuzmenko, "Kramers–Kronig constrained variational analysis of optical spectra,"
-   Rev. Sci. Instrum. 76, 083108 (2005) (an eps2 mesh with about as many nodes as data points).
+   Rev. Sci. Instrum. 76, 083108 (2005) (an eps2 mesh with about as many nodes as data points);
+   see docs/references.md [Kuzmenko2005].
 .. [2] E. Fehlberg, "Low-order classical Runge–Kutta formulas with stepsize control,"
-   NASA TR R-315 (1969) (error of a lower-order formula from a higher-order one).
+   NASA TR R-315 (1969) (from memory; error of a lower-order formula from a higher-order one);
+   see docs/references.md [Fehlberg1969].
 """
 
 from __future__ import annotations
@@ -141,7 +143,8 @@ def tie_tolerance(nodes_ev, tied, eps2_nodes, s_node) -> np.ndarray:
     References
     ----------
     .. [1] E. Fehlberg, "Low-order classical Runge–Kutta formulas with stepsize control,"
-       NASA TR R-315 (1969) (error of a lower-order formula from a higher-order one).
+       NASA TR R-315 (1969) (from memory; error of a lower-order formula from a higher-order
+       one); see docs/references.md [Fehlberg1969].
     """
     nodes = np.asarray(nodes_ev, float)
     tied = np.asarray(tied, bool)

@@ -4,7 +4,7 @@ The test fits the data with a model that is KK-consistent and passive by constru
 (:mod:`kkcheck.kk.basisfit`: eps_inf + a nonnegative piecewise-linear eps2 basis with exact KK
 partners, nodes at the data's own energies and continued geometrically to 0.1x / 10x the
 window, optional Drude columns for conductors), weighted by the per-point noise
-(:mod:`kkcheck.kk.noise`). Data that are KK-consistent within their noise are fitted to
+(:func:`spectrum_noise`). Data that are KK-consistent within their noise are fitted to
 chi2/dof ~ 1 with structureless residuals; inconsistent data leave contiguous runs of large
 normalised residuals, which are reported as regions.
 
@@ -18,8 +18,8 @@ Verdict rule (documented in :class:`KKTestOptions`; the same for every material)
 1. normalised residuals z = (data - model) / sigma for eps1 and eps2;
 2. per component, the running rms of z over ``run_width`` consecutive points (points flagged
    SPIKE or STEP are skipped), and every run of at least ``min_points`` consecutive points where
-   it exceeds ``z_threshold`` is a region (for pure Gaussian noise, a 5-point mean of z^2 above 9
-   has probability ~1e-8 per point);
+   it exceeds ``z_threshold`` is a region (:mod:`kkcheck.kk.regions`; for pure Gaussian noise,
+   a 5-point mean of z^2 above 9 has probability ~1e-8 per point);
 3. ``"inconsistent"`` when any region exists or chi2/dof > ``chi2_threshold`` (3: allows the
    noise estimate to be ~1.7x too small before crying wolf); else ``"consistent"``;
 4. when regions were found, the model is refitted without the points of the most severe
@@ -40,21 +40,22 @@ faults of 15-25 sigma (k shifted 40 meV, a k bump without n partner, an n distor
 100 nm, k x 3) were found, at the planted place, in all 120 runs. Coarsely sampled peaks: a
 Lorentz oscillator (FWHM 0.3 eV, eps2 peak ~13, noise 0.002) sampled every 0.07 or 0.1 eV
 (3-4 points per FWHM) gave chi2/dof 0.5-1.7 with the true noise and no false alarm in 40
-runs (before the cubic ties got a tolerance for their own error, :func:`kkcheck.kk.basisfit.
-tie_tolerance`: chi2/dof 130-220); with the noise estimated from the data chi2/dof is lower
-(0.3-1.5) because the local estimate sees part of the peak as noise. Peaks narrower than ~3
-points per FWHM (a single-point eps2 spike) are treated as inconsistent with eps1: that is the
-test's resolution limit. Cost: dense, O(M P^2) for M
+runs (before the cubic ties got a tolerance for their own error,
+:func:`kkcheck.kk.basisnodes.tie_tolerance`: chi2/dof 130-220); with the noise estimated from
+the data chi2/dof is lower (0.3-1.5) because the local estimate sees part of the peak as
+noise. Peaks narrower than ~3 points per FWHM (a single-point eps2 spike) are treated as
+inconsistent with eps1: that is the test's resolution limit. Cost: dense, O(M P^2) for M
 points and P nodes; 0.1 s at 600 points, 0.8 s at 2000, ~3 s at 3000, ~11 s at 5000 (one core;
 the split intervals add ~10% nodes and ~20-30% time at 3000 points).
 
 References
 ----------
 .. [1] A. B. Kuzmenko, "Kramers–Kronig constrained variational analysis of optical spectra,"
-   Rev. Sci. Instrum. 76, 083108 (2005).
+   Rev. Sci. Instrum. 76, 083108 (2005); see docs/references.md [Kuzmenko2005].
 .. [2] K. F. Palmer, M. Z. Williams, B. A. Budde, "Multiply subtractive Kramers–Kronig analysis
-   of optical data," Appl. Opt. 37, 2660 (1998) (why truncation errors demand anchors or a
-   model of the outside absorption).
+   of optical data," Appl. Opt. 37, 2660 (1998) (issue and pages from memory; why truncation
+   errors demand anchors or a model of the outside absorption); see docs/references.md
+   [Palmer1998].
 """
 
 from __future__ import annotations
@@ -62,12 +63,14 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.ndimage import uniform_filter1d
 
 from ..errors import InputError
-from ..noise import spectrum_noise
+from ..jsonsafe import json_float, json_floats
+from ..noise import MIN_POINTS, NOISE_FLOOR_ABS, NOISE_FLOOR_REL, spectrum_noise
+from ..options import DOWNWEIGHT_FACTOR
 from ..spectrum import Flag, Spectrum
-from .basisfit import KKBasisModel, choose_nodes, fit_kk_basis, unsupported_nodes
+from .basisfit import KKBasisModel, choose_nodes, fit_kk_basis
+from .regions import Region, find_regions
 
 __all__ = ["KKTestOptions", "Region", "KKTestResult", "kk_test", "find_regions", "NOTE_CODES"]
 
@@ -105,13 +108,14 @@ class KKTestOptions:
         Regions whose peak |z| reaches this are labelled "strong", else "moderate".
     flagged_sigma_factor : float
         Points with Flag.SPIKE or Flag.STEP get their sigma multiplied by this (weight
-        1/factor^2) and are skipped by the region search and the chi2.
+        1/factor^2; default :data:`kkcheck.options.DOWNWEIGHT_FACTOR`) and are skipped by the
+        region search and the chi2.
     anchor_sigma_factor : float
         eps1 at the point nearest each anchor gets its sigma multiplied by this (< 1: trusted).
     drude : str or bool
         "auto" (Drude columns when eps1 < 0 at the low end of the window), True or False.
     low_factor, high_factor, growth, thin_tol : float
-        Node placement (:func:`kkcheck.kk.basisfit.choose_nodes`).
+        Node placement (:func:`kkcheck.kk.basisnodes.choose_nodes`).
     smoothing : float
         Curvature penalty weight (:func:`kkcheck.kk.basisfit.fit_kk_basis`), 0 = off.
     refit_regions : bool
@@ -123,7 +127,8 @@ class KKTestOptions:
     max_excluded_fraction : float
         The refit is skipped when the regions hold more than this fraction of the points.
     rel_floor, abs_floor : float
-        Noise floor (:func:`kkcheck.kk.noise.spectrum_noise`).
+        Noise floor sigma >= max(rel_floor |eps|, abs_floor) (:func:`spectrum_noise`; defaults
+        :data:`kkcheck.noise.NOISE_FLOOR_REL` and :data:`kkcheck.noise.NOISE_FLOOR_ABS`).
     """
 
     z_threshold: float = 3.0
@@ -131,7 +136,7 @@ class KKTestOptions:
     min_points: int = 3
     chi2_threshold: float = 3.0
     strong_severity: float = 10.0
-    flagged_sigma_factor: float = 10.0
+    flagged_sigma_factor: float = DOWNWEIGHT_FACTOR
     anchor_sigma_factor: float = 0.1
     drude: str | bool = "auto"
     low_factor: float = 0.1
@@ -142,31 +147,8 @@ class KKTestOptions:
     refit_regions: bool = True
     refit_severity_ratio: float = 0.5
     max_excluded_fraction: float = 0.5
-    rel_floor: float = 1e-4
-    abs_floor: float = 1e-6
-
-
-@dataclass(frozen=True)
-class Region:
-    """A contiguous energy range where eps1 and eps2 disagree.
-
-    Attributes
-    ----------
-    from_ev, to_ev : float
-        First and last point of the region [eV].
-    component : str
-        ``"eps1"`` or ``"eps2"``: the component whose residuals exceed the threshold.
-    severity : float
-        Peak |normalised residual| inside the region [dimensionless, in units of sigma].
-    label : str
-        ``"moderate"`` or ``"strong"`` (severity >= ``KKTestOptions.strong_severity``).
-    """
-
-    from_ev: float
-    to_ev: float
-    component: str
-    severity: float
-    label: str = "moderate"
+    rel_floor: float = NOISE_FLOOR_REL
+    abs_floor: float = NOISE_FLOOR_ABS
 
 
 @dataclass(frozen=True)
@@ -233,71 +215,25 @@ class KKTestResult:
         if len(self.note_codes) != len(self.notes):
             raise ValueError("note_codes must hold one code per note, in the same order")
 
+    def to_dict(self) -> dict:
+        """The ``kk`` block of summary.json, without the keys only the pipeline knows.
 
-def find_regions(
-    energy_ev,
-    z,
-    counted,
-    component: str,
-    options: KKTestOptions,
-) -> list[Region]:
-    """Regions where the running rms of ``z`` over counted points exceeds the threshold.
-
-    Parameters
-    ----------
-    energy_ev : array_like
-        Energies [eV], non-decreasing.
-    z : array_like
-        Normalised residuals.
-    counted : array_like of bool
-        Points taken into account (others are skipped, not zeroed).
-    component : str
-        Label stored in each region.
-    options : KKTestOptions
-        Threshold, window and minimum run length.
-
-    Notes
-    -----
-    rms_i = sqrt(mean_{|j-i| <= W/2} z_j^2) over counted points (mirrored at the ends, so an
-    end point is not counted twice); a region is a maximal run of >= ``min_points``
-    consecutive counted points with rms_i > ``z_threshold``, after joining neighbouring runs
-    separated by at most max(``run_width``, a quarter of their combined length) points; its
-    severity is max |z_j| over the run.
-    """
-    e = np.asarray(energy_ev, float)
-    idx = np.nonzero(np.asarray(counted, bool))[0]
-    if idx.size == 0:
-        return []
-    zz = np.asarray(z, float)[idx]
-    ms = uniform_filter1d(zz * zz, size=max(1, options.run_width), mode="mirror")
-    rms = np.sqrt(np.maximum(ms, 0.0))  # running sums can round to tiny negatives
-    over = rms > options.z_threshold
-    # close short gaps: two runs separated by at most max(run_width, a quarter of their
-    # combined length) points are one fault whose residual crosses zero inside it (or has a
-    # flagged point in it)
-    d = np.diff(np.r_[0, over.astype(int), 0])
-    starts, ends = np.flatnonzero(d == 1), np.flatnonzero(d == -1)  # runs [start, end)
-    for r in range(len(starts) - 1):
-        gap = starts[r + 1] - ends[r]
-        joined = (ends[r] - starts[r]) + (ends[r + 1] - starts[r + 1])
-        if gap <= max(options.run_width, joined // 4):
-            over[ends[r] : starts[r + 1]] = True
-    out = []
-    k = 0
-    n = over.size
-    while k < n:
-        if not over[k]:
-            k += 1
-            continue
-        j = k
-        while j + 1 < n and over[j + 1]:
-            j += 1
-        if j - k + 1 >= options.min_points:
-            sev = float(np.max(np.abs(zz[k : j + 1])))
-            label = "strong" if sev >= options.strong_severity else "moderate"
-            out.append(Region(float(e[idx[k]]), float(e[idx[j]]), component, sev, label))
-        k = j + 1
-    return out
+        Keys: method, anchors_ev, rms, max, noise, chi2_dof, verdict, regions (each
+        :meth:`Region.to_dict`) and notes; floats are JSON-safe
+        (:func:`kkcheck.jsonsafe.json_float`). The pipeline adds range_ev, points_analysed
+        and its binning note.
+        """
+        return {
+            "method": self.method,
+            "anchors_ev": json_floats(self.anchors_ev),
+            "rms": json_float(self.rms),
+            "max": json_float(self.max),
+            "noise": json_float(self.noise),
+            "chi2_dof": json_float(self.chi2_dof),
+            "verdict": self.verdict,
+            "regions": [r.to_dict() for r in self.regions],
+            "notes": list(self.notes),
+        }
 
 
 def kk_test(
@@ -333,30 +269,93 @@ def kk_test(
 
     Notes
     -----
-    Model (Kuzmenko 2005): eps(w) = eps_inf + sum_i A_i [K_i(w) + i T_i(w)]
-    + sum_j D_j [-1/(w (w + i g_j))], A_i >= 0, D_j >= 0, solved by bounded linear least
-    squares. The Drude columns (g_j = 0.01, 0.03, 0.1, 0.3, 1 x the lowest energy) carry the
-    DC-conductivity pole of eps2, sigma0/(eps0 w) = wp^2/(g w) as w -> 0, so conductors are
-    modelled, not subtracted. Down-weighting rule: SPIKE or STEP points get sigma x 10 and are
-    excluded from chi2 and from the region search. The verdict rule is in the module docstring.
+    Model (Kuzmenko 2005, :mod:`kkcheck.kk.basisfit`): eps_inf + a nonnegative PL eps2 basis
+    with exact KK partners, plus Drude columns (g_j = 0.01, 0.03, 0.1, 0.3, 1 x the lowest
+    energy) that carry the DC-conductivity pole of eps2, sigma0/(eps0 w) = wp^2/(g w) as
+    w -> 0, so conductors are modelled, not subtracted. SPIKE or STEP points get sigma x
+    ``flagged_sigma_factor`` and are excluded from chi2 and from the region search. The
+    verdict rule is in the module docstring.
 
     References
     ----------
-    .. [1] A. B. Kuzmenko, Rev. Sci. Instrum. 76, 083108 (2005).
+    .. [1] A. B. Kuzmenko, Rev. Sci. Instrum. 76, 083108 (2005); see docs/references.md
+       [Kuzmenko2005].
     """
     opt = options or KKTestOptions()
-    m = len(spectrum)
     e = spectrum.energy_ev
-    if m < 8:
-        raise InputError(f"KK test needs at least 8 points, got {m}")
+    wt = _checked_weights(spectrum, weights)
+    noise = spectrum_noise(spectrum, rel_floor=opt.rel_floor, abs_floor=opt.abs_floor)
+    s1, s2 = noise.sigma_eps1, noise.sigma_eps2
+    bad = (spectrum.flags & (int(Flag.SPIKE) | int(Flag.STEP))) != 0
+    u1, u2, anchors = _fit_sigmas(spectrum, s1, s2, bad, anchors_ev, opt)
+    notes = _window_notes(spectrum, noise.notes)
+    nodeset = choose_nodes(e, spectrum.eps.imag, s2, **_node_options(opt))
+    notes.extend(("gap", _gap_note(g0, g1)) for g0, g1 in nodeset.gaps_ev)
+    gam = _drude_gammas(spectrum, opt)
+    if gam.size:
+        notes.append(("drude_columns", _DRUDE_NOTE))
+    fit = fit_kk_basis(
+        e,
+        spectrum.eps,
+        u1,
+        u2,
+        nodeset.nodes_ev,
+        tied=nodeset.tied,
+        in_gap=nodeset.in_gap,
+        drude_gamma_ev=gam,
+        weights=wt,
+        smoothing=opt.smoothing,
+    )
+    counted = (~bad) & (wt > 0)
+    found = _evaluate(spectrum, fit.model, u1, u2, counted, opt)
+    zc = np.concatenate([found.z1[counted], found.z2[counted]])
+    chi2_dof = float(zc @ zc) / max(1.0, zc.size - fit.n_effective)
+    if found.regions and opt.refit_regions:
+        found, note = _refit_without_regions(spectrum, found, u1, u2, wt, counted, opt)
+        notes.extend([note] if note else [])
+    return _result(spectrum, found, counted, (s1, s2), chi2_dof, anchors, notes, opt)
+
+
+@dataclass(frozen=True)
+class _Pass:
+    """Model, its eps at the data, normalised residuals and regions of one fit."""
+
+    model: KKBasisModel
+    eps: np.ndarray
+    z1: np.ndarray
+    z2: np.ndarray
+    regions: list
+
+
+def _node_options(opt: KKTestOptions) -> dict:
+    """The node-placement settings of ``opt`` as keywords of :func:`choose_nodes`."""
+    return {
+        "low_factor": opt.low_factor,
+        "high_factor": opt.high_factor,
+        "growth": opt.growth,
+        "thin_tol": opt.thin_tol,
+    }
+
+
+_DRUDE_NOTE = "conductor: Drude columns with fixed damping included (DC pole of eps2)"
+
+
+def _checked_weights(spectrum: Spectrum, weights) -> np.ndarray:
+    """The per-point weights (ones when None), after checking the data can be tested."""
+    m = len(spectrum)
+    if m < MIN_POINTS:
+        raise InputError(f"KK test needs at least {MIN_POINTS} points, got {m}")
     if not np.all(np.isfinite(spectrum.eps)):
         raise InputError("KK test needs finite eps1 and eps2 at every point")
     wt = np.ones(m) if weights is None else np.asarray(weights, float)
     if wt.shape != (m,) or not np.all(np.isfinite(wt)) or np.any(wt < 0):
         raise InputError("weights must be one finite value >= 0 per point")
-    noise = spectrum_noise(spectrum, rel_floor=opt.rel_floor, abs_floor=opt.abs_floor)
-    s1, s2 = noise.sigma_eps1, noise.sigma_eps2
-    bad = (spectrum.flags & (int(Flag.SPIKE) | int(Flag.STEP))) != 0
+    return wt
+
+
+def _fit_sigmas(spectrum: Spectrum, s1, s2, bad, anchors_ev, opt: KKTestOptions):
+    """Sigmas the fit uses (inflated at flagged points, deflated at anchors) and the anchors."""
+    e = spectrum.energy_ev
     f1 = np.where(bad, opt.flagged_sigma_factor, 1.0)
     u1, u2 = s1 * f1, s2 * f1
     anchors = tuple(float(a) for a in (anchors_ev or ()))
@@ -365,117 +364,112 @@ def kk_test(
             raise InputError(f"anchor {a} eV must lie inside the data window {e[0]}-{e[-1]} eV")
         j = int(np.argmin(np.abs(e - a)))
         u1[j] = u1[j] * opt.anchor_sigma_factor
+    return u1, u2, anchors
+
+
+def _window_notes(spectrum: Spectrum, noise_notes) -> list[tuple[str, str]]:
+    """(code, text) of the notes every result carries, the noise notes and a narrow window."""
     notes = [
-        "a constant offset of eps1 cannot be detected from a finite window (absorbed in eps_inf)",
-        "smooth even distortions of eps1 (a + b w^2 + c/w^2) are indistinguishable from "
-        "absorption outside the window",
+        (
+            "constant_offset",
+            "a constant offset of eps1 cannot be detected from a finite window (absorbed in "
+            "eps_inf)",
+        ),
+        (
+            "even_distortion",
+            "smooth even distortions of eps1 (a + b w^2 + c/w^2) are indistinguishable from "
+            "absorption outside the window",
+        ),
     ]
-    codes = ["constant_offset", "even_distortion"]
-    notes.extend(noise.notes)
-    codes.extend(["noise"] * len(noise.notes))
+    notes.extend(("noise", n) for n in noise_notes)
     lo, hi = spectrum.range_ev
     if hi / lo < 1.5:
         notes.append(
-            f"narrow window ({lo:.4g}-{hi:.4g} eV, ratio {hi / lo:.2f}): outside absorption "
-            "can mimic much of eps1; the test is weak"
+            (
+                "narrow_window",
+                f"narrow window ({lo:.4g}-{hi:.4g} eV, ratio {hi / lo:.2f}): outside "
+                "absorption can mimic much of eps1; the test is weak",
+            )
         )
-        codes.append("narrow_window")
-    nodeset = choose_nodes(
-        e,
-        spectrum.eps.imag,
-        s2,
-        low_factor=opt.low_factor,
-        high_factor=opt.high_factor,
-        growth=opt.growth,
-        thin_tol=opt.thin_tol,
+    return notes
+
+
+def _gap_note(g0: float, g1: float) -> str:
+    return (
+        f"gap in the data {g0:.4g}-{g1:.4g} eV: eps2 there is constrained only by eps1 "
+        "and a smoothness prior"
     )
-    for g0, g1 in nodeset.gaps_ev:
-        notes.append(
-            f"gap in the data {g0:.4g}-{g1:.4g} eV: eps2 there is constrained only by eps1 "
-            "and a smoothness prior"
-        )
-        codes.append("gap")
+
+
+def _drude_gammas(spectrum: Spectrum, opt: KKTestOptions) -> np.ndarray:
+    """Damping energies of the Drude columns [eV] (empty for an insulator)."""
+    e = spectrum.energy_ev
     use_drude = opt.drude
     if use_drude == "auto":
         low = e <= e[0] + 0.1 * (e[-1] - e[0])
         use_drude = bool(np.median(spectrum.eps.real[low]) < 0)
-    gam = e[0] * np.array([0.01, 0.03, 0.1, 0.3, 1.0]) if use_drude else np.zeros(0)
-    if use_drude:
-        notes.append("conductor: Drude columns with fixed damping included (DC pole of eps2)")
-        codes.append("drude_columns")
+    return e[0] * np.array([0.01, 0.03, 0.1, 0.3, 1.0]) if use_drude else np.zeros(0)
 
-    def run_fit(w, in_gap):
-        return fit_kk_basis(
-            e,
-            spectrum.eps,
-            u1,
-            u2,
-            nodeset.nodes_ev,
-            tied=nodeset.tied,
-            in_gap=in_gap,
-            drude_gamma_ev=gam,
-            weights=w,
-            smoothing=opt.smoothing,
-        )
 
-    fit = run_fit(wt, nodeset.in_gap)
-    mod = fit.model.eps(e)
+def _evaluate(spectrum, model: KKBasisModel, u1, u2, counted, opt: KKTestOptions) -> _Pass:
+    """Residuals of ``model`` normalised by the fit sigmas, and the regions they make."""
+    e = spectrum.energy_ev
+    mod = model.eps(e)
     z1 = (spectrum.eps.real - mod.real) / u1
     z2 = (spectrum.eps.imag - mod.imag) / u2
-    counted = (~bad) & (wt > 0)
-    zc = np.concatenate([z1[counted], z2[counted]])
-    chi2 = float(zc @ zc)
-    dof = max(1.0, zc.size - fit.n_effective)
-    chi2_dof = chi2 / dof
     regions = find_regions(e, z1, counted, "eps1", opt) + find_regions(e, z2, counted, "eps2", opt)
-    model = fit.model
-    if regions and opt.refit_regions:
-        # second pass: the fit without the points in the regions (a fault pulls the fit
-        # towards itself and spreads residuals to its neighbours); residuals and regions are
-        # then measured against the model of the remaining, consistent data
-        inside = np.zeros(m, bool)
-        top = max(g.severity for g in regions)
-        for g in regions:
-            if g.severity >= opt.refit_severity_ratio * top:
-                inside |= (e >= g.from_ev) & (e <= g.to_ev)
-        w2 = np.where(inside, 0.0, wt)
-        if np.count_nonzero(w2) >= max(8, (1 - opt.max_excluded_fraction) * m):
-            gap2 = nodeset.in_gap | unsupported_nodes(nodeset.nodes_ev, e[w2 > 0], e)
-            fit2 = run_fit(w2, gap2)
-            mod2 = fit2.model.eps(e)
-            y1 = (spectrum.eps.real - mod2.real) / u1
-            y2 = (spectrum.eps.imag - mod2.imag) / u2
-            regions2 = find_regions(e, y1, counted, "eps1", opt) + find_regions(
-                e, y2, counted, "eps2", opt
-            )
-            if regions2:
-                regions, model, mod, z1, z2 = regions2, fit2.model, mod2, y1, y2
-                zc = np.concatenate([z1[counted], z2[counted]])
-                notes.append(
-                    "regions, residuals and model are from a refit without the points first "
-                    "found inconsistent; chi2/dof is of the fit to all points"
-                )
-                codes.append("refit_without_regions")
-        else:
-            notes.append(
-                "inconsistent over most of the window: no refit without the regions was made"
-            )
-            codes.append("no_refit")
+    return _Pass(model, mod, z1, z2, regions)
+
+
+def _refit_without_regions(spectrum, first: _Pass, u1, u2, wt, counted, opt: KKTestOptions):
+    """Step 4 of the verdict rule: the fit without the most severe regions' points.
+
+    A fault pulls the fit towards itself and spreads residuals to its neighbours; residuals
+    and regions are then measured against the model of the remaining, consistent data.
+    Returns the pass to report and its (code, text) note, or None.
+    """
+    e = spectrum.energy_ev
+    m = len(spectrum)
+    inside = np.zeros(m, bool)
+    top = max(g.severity for g in first.regions)
+    for g in first.regions:
+        if g.severity >= opt.refit_severity_ratio * top:
+            inside |= (e >= g.from_ev) & (e <= g.to_ev)
+    w2 = np.where(inside, 0.0, wt)
+    if np.count_nonzero(w2) < max(MIN_POINTS, (1 - opt.max_excluded_fraction) * m):
+        text = "inconsistent over most of the window: no refit without the regions was made"
+        return first, ("no_refit", text)
+    fit2 = first.model.refit(e, spectrum.eps, u1, u2, w2, smoothing=opt.smoothing)
+    second = _evaluate(spectrum, fit2.model, u1, u2, counted, opt)
+    if not second.regions:
+        return first, None
+    text = (
+        "regions, residuals and model are from a refit without the points first "
+        "found inconsistent; chi2/dof is of the fit to all points"
+    )
+    return second, ("refit_without_regions", text)
+
+
+def _result(spectrum, found: _Pass, counted, sigmas, chi2_dof, anchors, notes, opt):
+    """The verdict (step 3 of the rule) and the result record."""
+    s1, s2 = sigmas
+    zc = np.concatenate([found.z1[counted], found.z2[counted]])
     n_res = zc.size
+    regions = found.regions
     verdict = "inconsistent" if regions or chi2_dof > opt.chi2_threshold else "consistent"
     if chi2_dof > opt.chi2_threshold and not regions:
-        notes.append(
+        text = (
             f"chi2/dof = {chi2_dof:.3g} above {opt.chi2_threshold}: inconsistent everywhere or "
             "noise underestimated"
         )
-        codes.append("chi2_high")
+        notes = [*notes, ("chi2_high", text)]
     return KKTestResult(
         method=METHOD,
-        energy_ev=np.array(e),
-        eps1_model=mod.real,
-        eps2_model=mod.imag,
-        resid1=z1,
-        resid2=z2,
+        energy_ev=np.array(spectrum.energy_ev),
+        eps1_model=found.eps.real,
+        eps2_model=found.eps.imag,
+        resid1=found.z1,
+        resid2=found.z2,
         sigma_eps1=s1,
         sigma_eps2=s2,
         noise=float(np.median(s1)),
@@ -485,7 +479,7 @@ def kk_test(
         anchors_ev=anchors,
         regions=tuple(regions),
         verdict=verdict,
-        notes=tuple(notes),
-        model=model,
-        note_codes=tuple(codes),
+        notes=tuple(text for _, text in notes),
+        model=found.model,
+        note_codes=tuple(code for code, _ in notes),
     )

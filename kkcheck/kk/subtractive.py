@@ -8,12 +8,15 @@ removes most of that error.
 References
 ----------
 .. [1] R. K. Ahrenkiel, "Modified Kramers–Kronig analysis of optical spectra," J. Opt. Soc.
-   Am. 61, 1651 (1971) (singly subtractive form; page range from memory).
+   Am. 61, 1651 (1971) (singly subtractive form; from memory); see docs/references.md
+   [Ahrenkiel1971].
 .. [2] K. F. Palmer, M. Z. Williams, B. A. Budde, "Multiply subtractive Kramers–Kronig
-   analysis of optical data," Appl. Opt. 37, 2660 (1998) (details from memory).
+   analysis of optical data," Appl. Opt. 37, 2660 (1998) (details from memory); see
+   docs/references.md [Palmer1998].
 .. [3] "A unified framework for the numerical evaluation of the Q-subtractive Kramers–Kronig
    relations and application to the reconstruction of optical constants of quartz" (the
-   implementation identity used here; see REFERENCES.md item 2).
+   implementation identity used here, confirmed from the abstract; authors, journal and year
+   not recorded); see docs/references.md [QSubtractive].
 """
 
 from __future__ import annotations
@@ -138,16 +141,22 @@ def subtractive_eps1(
                   + (2/pi) Pi(w) P int w' eps2(w') / [(w'^2 - w^2) prod_j (w'^2 - w_j^2)] dw'.
 
     It equals the plain truncated KK result T(w) plus the Lagrange polynomial in w^2 through
-    the anchor errors e_j = eps1(w_j) - T(w_j) (the implementation identity of REFERENCES.md
-    item 2), which is what is computed: one transform, no extra poles at the anchors. Q = 1
-    is the singly subtractive form of Ahrenkiel (1971). eps_inf is absorbed by the
-    polynomial. Far from the anchors a polynomial of high degree extrapolates badly; two to
-    four anchors spread over the window are the usual choice.
+    the anchor errors e_j = eps1(w_j) - T(w_j) (the implementation identity of [3]_), which
+    is what is computed: one transform, no extra poles at the anchors. Q = 1 is the singly
+    subtractive form of Ahrenkiel (1971). eps_inf is absorbed by the polynomial. Far from the
+    anchors a polynomial of high degree extrapolates badly; two to four anchors spread over
+    the window are the usual choice. Equation numbers of the papers are not recorded.
 
     References
     ----------
-    .. [1] R. K. Ahrenkiel, J. Opt. Soc. Am. 61, 1651 (1971).
-    .. [2] K. F. Palmer, M. Z. Williams, B. A. Budde, Appl. Opt. 37, 2660 (1998).
+    .. [1] R. K. Ahrenkiel, J. Opt. Soc. Am. 61, 1651 (1971) (from memory); see
+       docs/references.md [Ahrenkiel1971].
+    .. [2] K. F. Palmer, M. Z. Williams, B. A. Budde, Appl. Opt. 37, 2660 (1998) (details from
+       memory); see docs/references.md [Palmer1998].
+    .. [3] "A unified framework for the numerical evaluation of the Q-subtractive
+       Kramers–Kronig relations and application to the reconstruction of optical constants of
+       quartz" (authors, journal and year not recorded); see docs/references.md
+       [QSubtractive].
     """
     return subtractive_result(
         energy_ev, eps2, anchors_ev, anchors_eps1, at_ev, method=method, dc_sigma_ev=dc_sigma_ev
@@ -236,7 +245,8 @@ def subtractive_from_data(
 
     The anchors are :func:`choose_anchors` points; their eps1 values are the data's own. The
     reconstruction agrees with eps1 at the anchors by construction, so those points carry
-    no test information; hold one out for validation (REFERENCES.md item 2).
+    no test information; hold one out for validation (project practice, no source; see
+    docs/references.md [SubtractiveCheck]).
     """
     x, e1 = check_axis(energy_ev, eps1, "eps1")
     idx = choose_anchors(x, n_anchors)

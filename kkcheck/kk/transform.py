@@ -156,8 +156,13 @@ def eps2_to_eps1(energy_ev, eps2, at_ev=None, *, method="auto", dc_sigma_ev=0.0)
 
     References
     ----------
-    .. [1] REFERENCES.md items 1 and 3 (the closed form checked against quadrature).
-    .. [2] A. B. Kuzmenko, Rev. Sci. Instrum. 76, 083108 (2005).
+    .. [1] F. Wooten, *Optical Properties of Solids*, Academic Press (1972), App. G (the KK
+       relations, insulator and conductor forms; details from memory); see
+       docs/references.md [Wooten1972] and [KK-formulas].
+    .. [2] A. B. Kuzmenko, Rev. Sci. Instrum. 76, 083108 (2005) (the triangle partner, the
+       three-node case of this closed form, derived in the project and checked against
+       ``scipy.integrate.quad(weight="cauchy")``); see docs/references.md [Kuzmenko2005] and
+       [PLClosedForm].
     """
     x, y = check_axis(energy_ev, eps2, "eps2")
     w = check_targets(at_ev, x)
@@ -208,8 +213,9 @@ def eps1_to_eps2(
 
     References
     ----------
-    .. [1] REFERENCES.md item 1 (conductor form and the Drude check table).
-    .. [2] F. Wooten, *Optical Properties of Solids*, Academic Press (1972), App. G.
+    .. [1] F. Wooten, *Optical Properties of Solids*, Academic Press (1972), App. G (the
+       conductor form with the sigma0/(eps0 w) term; details from memory); see
+       docs/references.md [Wooten1972] and [KK-formulas] (the Drude check table).
     """
     x, y = check_axis(energy_ev, eps1_minus_inf, "eps1 - eps_inf")
     w = check_targets(at_ev, x)
@@ -227,7 +233,8 @@ def k_to_n_minus_1(energy_ev, k, at_ev=None, *, method="auto") -> np.ndarray:
     """n - 1 from piecewise-linear k (zero outside the window); same kernel as eps2 -> eps1.
 
     N = n + i k is causal with N -> 1 at high energy, so n(w) - 1 = (2/pi) P int_0^inf
-    w' k(w') / (w'^2 - w^2) dw' (REFERENCES.md item 1). See :func:`eps2_to_eps1`.
+    w' k(w') / (w'^2 - w^2) dw' (Wooten 1972, App. G; see docs/references.md [KK-formulas]).
+    See :func:`eps2_to_eps1`.
     """
     return eps2_to_eps1(energy_ev, k, at_ev, method=method)
 
@@ -268,7 +275,9 @@ def dc_sigma_from_low_energy(energy_ev, eps2, n_points: int = 10) -> float:
 
     References
     ----------
-    .. [1] REFERENCES.md item 1 (Drude form, sigma0/eps0 = wp^2/gamma).
+    .. [1] F. Wooten, *Optical Properties of Solids*, Academic Press (1972) (the Drude form,
+       sigma0/eps0 = wp^2/gamma; details from memory); see docs/references.md [Wooten1972]
+       and [ModelFormulas].
     """
     x, y = check_axis(energy_ev, eps2, "eps2")
     n = int(n_points)
