@@ -306,13 +306,30 @@ def pl_kink_sum_fast(
     lo = min(x[0], w.min()) - (half + 1) * h
     hi = max(x[-1], w.max()) + (half + 1) * h
     n_grid = int(np.ceil((hi - lo) / h)) + 1
-    # --- spread sources onto the grid Y_l = lo + l h
-    pos = (x - lo) / h
+    d = _spread(x, c, lo, h, order, n_grid)
+    v = _grid_sums(d, lo, h, sign, a, order)
+    out = _gather(v, w, lo, h, order)
+    return out + sign * _near_field(x, c, w, a)
+
+
+def _stencil(pos: np.ndarray, order: int) -> tuple[np.ndarray, np.ndarray]:
+    """Grid indices and Lagrange weights of the ``order``-point stencil around each position."""
+    half = order // 2
     cell = np.floor(pos).astype(np.int64)
     wts = _lagrange_weights(pos - cell, order)
     idx = cell[:, None] + (np.arange(order) - (half - 1))[None, :]
-    d = np.bincount(idx.ravel(), weights=(wts * c[:, None]).ravel(), minlength=n_grid)
-    # --- grid sums: V_k = sum_l D_l [phi(2 lo + (k + l) h) + sign * phi_s((k - l) h)]
+    return idx, wts
+
+
+def _spread(x, c, lo: float, h: float, order: int, n_grid: int) -> np.ndarray:
+    """Sources spread onto the grid Y_l = lo + l h: D_l = sum_j c_j L_l(x_j)."""
+    idx, wts = _stencil((x - lo) / h, order)
+    return np.bincount(idx.ravel(), weights=(wts * c[:, None]).ravel(), minlength=n_grid)
+
+
+def _grid_sums(d, lo: float, h: float, sign: int, a: float, order: int) -> np.ndarray:
+    """V_k = sum_l D_l [phi(2 lo + (k + l) h) + sign * phi_s((k - l) h)] by FFT convolution."""
+    n_grid = d.size
     n_fft = scipy.fft.next_fast_len(2 * n_grid - 1, real=True)
     m = np.arange(2 * n_grid - 1, dtype=float)
     k_diff = sign * _phi_smooth((m - (n_grid - 1)) * h, a)  # index k - l + (G - 1)
@@ -321,20 +338,22 @@ def pl_kink_sum_fast(
     if ratio >= 4 and n_coarse <= _MAX_COARSE:
         src = scipy.fft.rfft(d, n=n_fft)
         v = scipy.fft.irfft(src * scipy.fft.rfft(k_diff, n=n_fft), n=n_fft)
-        v = v[n_grid - 1 : 2 * n_grid - 1] + _sum_part_coarse(d, lo, h, ratio, order)
-    else:
-        k_sum = _phi(2.0 * lo + m * h)  # index k + l
-        kern = scipy.fft.rfft(np.stack([k_diff, k_sum]), n=n_fft, axis=-1)
-        src = scipy.fft.rfft(np.stack([d, d[::-1]]), n=n_fft, axis=-1)
-        v = scipy.fft.irfft(src[0] * kern[0] + src[1] * kern[1], n=n_fft)
-        v = v[n_grid - 1 : 2 * n_grid - 1]
-    # --- interpolate back to targets
-    tpos = (w - lo) / h
-    tcell = np.floor(tpos).astype(np.int64)
-    twts = _lagrange_weights(tpos - tcell, order)
-    tidx = tcell[:, None] + (np.arange(order) - (half - 1))[None, :]
-    out = np.einsum("ij,ij->i", twts, v[tidx])
-    # --- near field: sign * sum_{|w - x_j| < cut} c_j phi_n(w - x_j)
+        return v[n_grid - 1 : 2 * n_grid - 1] + _sum_part_coarse(d, lo, h, ratio, order)
+    k_sum = _phi(2.0 * lo + m * h)  # index k + l
+    kern = scipy.fft.rfft(np.stack([k_diff, k_sum]), n=n_fft, axis=-1)
+    src = scipy.fft.rfft(np.stack([d, d[::-1]]), n=n_fft, axis=-1)
+    v = scipy.fft.irfft(src[0] * kern[0] + src[1] * kern[1], n=n_fft)
+    return v[n_grid - 1 : 2 * n_grid - 1]
+
+
+def _gather(v, w, lo: float, h: float, order: int) -> np.ndarray:
+    """Grid sums interpolated back to the targets with the same Lagrange stencil."""
+    tidx, twts = _stencil((w - lo) / h, order)
+    return np.einsum("ij,ij->i", twts, v[tidx])
+
+
+def _near_field(x, c, w, a: float) -> np.ndarray:
+    """sum_{|w - x_j| < cut} c_j phi_n(w - x_j) per target, in chunks of bounded size."""
     radius = _NEAR_CUT * a
     jlo = np.searchsorted(x, w - radius, side="left")
     jhi = np.searchsorted(x, w + radius, side="right")
@@ -354,4 +373,4 @@ def pl_kink_sum_fast(
             vals = c[sj] * _phi_near(w[ti] - x[sj], a)
             near[start:stop] = np.bincount(ti - start, weights=vals, minlength=stop - start)
         start = stop
-    return out + sign * near
+    return near
