@@ -555,8 +555,8 @@ def _fit(repaired, s1, s2, options: JobOptions, fit_pole_pairs):
         eps[keep],
         s1[keep],
         s2[keep],
-        n_pairs=options.pairs,
-        tol_rel=options.tol,
+        pairs=options.pairs,
+        tol=options.tol,
         chi2_target=options.chi2_target,
     )
 

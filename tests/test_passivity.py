@@ -16,7 +16,8 @@ from kkcheck.rational import (
 
 def _nonpassive():
     # a lossless-looking pair whose residue violates Re c (al^2 - be^2) - 2 al be Im c >= 0
-    # (REFERENCES item 8) next to a passive Lorentz: eps2 < 0 in a band near 2 eV
+    # (per-pair condition, derived from one pair's eps2; no published source) next to a passive
+    # Lorentz: eps2 < 0 in a band near 2 eV
     return PolePairModel(
         2.0,
         [complex(-0.1, 2.0), complex(-0.3, 1.0)],
@@ -65,7 +66,9 @@ def test_enforcement_high_frequency_violation():
 
 
 def test_per_pair_condition_matches_certificate_on_random_pairs():
-    # REFERENCES item 8 [V]: for one pair the condition is necessary and sufficient
+    # for one pair the condition is necessary and sufficient (derived from the pair's eps2 in the
+    # form of Han, Dutton & Fan, IEEE Microw. Wireless Compon. Lett. 16(3), 119 (2006), vol/pages
+    # from memory), so the algebra and the whole-axis certificate must agree on every pair
     rng = np.random.default_rng(20240611)
     agree = 0
     n = 400
@@ -78,7 +81,8 @@ def test_per_pair_condition_matches_certificate_on_random_pairs():
 
 
 def test_published_models_are_certified():
-    # Rakic 1998 Lorentz-Drude gold (REFERENCES item 9) is a sum of passive terms
+    # Lorentz-Drude gold of Rakic et al., Appl. Opt. 37(22), 5271 (1998) is a sum of passive
+    # terms
     wp, f0, g0, osc = materials.RAKIC_AU
     m = model_from_terms(
         1.0,
@@ -88,7 +92,7 @@ def test_published_models_are_certified():
     cert = certify_passivity(m)
     assert cert.certified and cert.stable
     assert dense_passivity_check(m).passive
-    # the Drude real pole alone fails the per-pair test (item 8) but the sum with the conductor
+    # the Drude real pole alone fails the per-pair test (Re c < 0) but the sum with the conductor
     # term is passive: eps2 = wp^2 gamma / (w (w^2 + gamma^2)) > 0
     assert not pair_is_passive(m.poles[0], m.residues[0])
 

@@ -1,6 +1,9 @@
 """Relaxed vector fitting and the fit_pole_pairs entry point."""
 
+import json
 import warnings
+from dataclasses import replace
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -8,7 +11,7 @@ import pytest
 from kkcheck import materials
 from kkcheck.errors import InputError
 from kkcheck.rational import dense_passivity_check, fit_pole_pairs, starting_poles, vector_fit
-from kkcheck.rational.fit import detect_conductor
+from kkcheck.rational.fit import WEIGHTING, detect_conductor
 from kkcheck.rational.vfit import poles_plus_pair, polish_poles
 from kkcheck.units import sigma_nk_to_eps
 
@@ -23,8 +26,9 @@ def _noisy(eps, rel, rng):
 
 @pytest.mark.parametrize("method", ["band", "aaa"])
 def test_known_poles_recovered(method):
-    # REFERENCES item 7 [V]: Lorentz d_eps=2, w0=1.5, gamma=0.3, 400 samples on [0.1, 4];
-    # poles +-1.49248116 - 0.15i in the physics w-plane, residues +-1.50755672. With s = -i w the
+    # closed form: Lorentz d_eps=2, w0=1.5, gamma=0.3, 400 samples on [0.1, 4]; poles
+    # +-sqrt(w0^2 - gamma^2/4) - i gamma/2 = +-1.49248116 - 0.15i in the physics w-plane,
+    # residues +-d_eps w0^2 / (2 sqrt(w0^2 - gamma^2/4)) = +-1.50755672. With s = -i w the
     # s-plane pole is a = -i w_p = -0.15 + 1.49248116 i (stored representative, Im a >= 0).
     w = np.linspace(0.1, 4, 400)
     e = 1.0 + materials.lorentz(w, 2.0, 1.5, 0.3)
@@ -36,7 +40,9 @@ def test_known_poles_recovered(method):
 
 
 def test_drude_metal_exact():
-    # closed form (REFERENCES item 8): Drude = conductor pole at 0 (2 c0 = wp^2/gamma) + pole -gamma
+    # closed form, the Drude mapping of the pole-pair form of Han, Dutton & Fan, IEEE Microw.
+    # Wireless Compon. Lett. 16(3), 119 (2006) (vol/pages from memory): Drude = conductor pole
+    # at 0 (2 c0 = wp^2/gamma) + real pole -gamma
     w = np.linspace(0.3, 5, 300)
     e = 1.0 + materials.drude(w, 8.0, 0.07)
     r = fit_pole_pairs(w, e)
@@ -51,7 +57,7 @@ def test_rakic_gold_clean_and_noisy():
     # issue 5 target: Rakic 1998 gold 0.5-6 eV to <= 1 % rms with <= 6 pairs, certified passive
     w = np.linspace(0.5, 6, 600)
     e0 = materials.rakic_ld(w)
-    clean = fit_pole_pairs(w, e0, tol_rel=0.01)
+    clean = fit_pole_pairs(w, e0, tol=0.01)
     noisy_e = _noisy(e0, 1e-3, RNG)
     sig = 1e-3 * np.abs(e0)
     noisy = fit_pole_pairs(w, noisy_e, sig, sig)
@@ -107,8 +113,10 @@ def test_input_validation():
         fit_pole_pairs(w, e, -np.ones(10))
     with pytest.raises(InputError, match="conductor"):
         fit_pole_pairs(w, e, conductor="maybe")
-    with pytest.raises(InputError, match="n_pairs"):
-        fit_pole_pairs(w, e, n_pairs=0)
+    with pytest.raises(InputError, match="^pairs must be a positive integer"):
+        fit_pole_pairs(w, e, pairs=0)
+    with pytest.raises(InputError, match="^tol .* must be > 0"):
+        fit_pole_pairs(w, e, tol=0.0)
 
 
 def test_unmet_target_warns():
@@ -116,14 +124,15 @@ def test_unmet_target_warns():
     e = materials.rakic_ld(w)
     with warnings.catch_warnings(record=True) as rec:
         warnings.simplefilter("always")
-        r = fit_pole_pairs(w, e, tol_rel=1e-9, max_pairs=2)
+        r = fit_pole_pairs(w, e, tol=1e-9, max_pairs=2)
     assert any("max_pairs" in str(x.message) for x in rec)
     assert r.warnings and r.rms_rel > 1e-9
 
 
 def _rakic_gold_nk_table(seed):
-    # Rakic 1998 gold (REFERENCES item 9, kkcheck.materials.RAKIC_AU) sampled 207-2480 nm every
-    # 5 nm as n, k with Gaussian noise 0.002 in each; sigma propagated to eps to first order.
+    # Lorentz-Drude gold of Rakic et al., Appl. Opt. 37(22), 5271 (1998) (kkcheck.materials.
+    # RAKIC_AU) sampled 207-2480 nm every 5 nm as n, k with Gaussian noise 0.002 in each; sigma
+    # propagated to eps to first order.
     lam = np.arange(207.0, 2480.0 + 0.5, 5.0)
     w = np.sort(1239.841984 / lam)
     nk = np.sqrt(materials.rakic_ld(w))
@@ -136,11 +145,12 @@ def _rakic_gold_nk_table(seed):
 
 @pytest.mark.parametrize("seed", [1, 2, 3, 4, 5, 6])
 def test_rakic_gold_nk_noise_reaches_floor_with_few_entries(seed):
-    # The Rakic 1998 Lorentz-Drude model (REFERENCES item 9) is exactly rational: Drude (conductor
-    # + one real pole) plus 5 Lorentz pairs, one at 13.32 eV far above and one at 0.415 eV just
-    # below the 0.5-6 eV window. So 6 entries reach the noise floor, chi2/dof ~ 1 (common
-    # practice, no source); the band-only start stalled at chi2/dof ~ 3 up to 9 entries, and
-    # vector fitting without the pole polish needed 8 (seed 5) or 10 (seed 4) entries.
+    # The Lorentz-Drude gold model of Rakic et al., Appl. Opt. 37(22), 5271 (1998) is exactly
+    # rational: Drude (conductor + one real pole) plus 5 Lorentz pairs, one at 13.32 eV far
+    # above and one at 0.415 eV just below the 0.5-6 eV window. So 6 entries reach the noise
+    # floor, chi2/dof ~ 1 (common practice, no source); the band-only start stalled at
+    # chi2/dof ~ 3 up to 9 entries, and vector fitting without the pole polish needed 8 (seed 5)
+    # or 10 (seed 4) entries.
     w, e, s1, s2 = _rakic_gold_nk_table(seed)
     truth = materials.rakic_ld(w)
     r_true = np.concatenate([(truth.real - e.real) / s1, (truth.imag - e.imag) / s2])
@@ -175,10 +185,10 @@ def test_added_pair_sites():
 
 
 def test_polish_moves_perturbed_poles_to_the_exact_ones():
-    # REFERENCES item 7 [V]: Lorentz d_eps=2, w0=1.5, gamma=0.3 on [0.1, 4]: pole
-    # a = -0.15 + 1.49248116 i, |c| = 1.50755672, eps_inf = 1. Started 5 % off in alpha and
-    # beta, with the residues re-solved, the polish must land on the exact pole (noise-free data:
-    # the minimum of the misfit is zero there).
+    # closed form: Lorentz d_eps=2, w0=1.5, gamma=0.3 on [0.1, 4]: pole
+    # a = -gamma/2 + i sqrt(w0^2 - gamma^2/4) = -0.15 + 1.49248116 i, |c| = 1.50755672,
+    # eps_inf = 1. Started 5 % off in alpha and beta, with the residues re-solved, the polish
+    # must land on the exact pole (noise-free data: the minimum of the misfit is zero there).
     w = np.linspace(0.1, 4, 400)
     e = 1.0 + materials.lorentz(w, 2.0, 1.5, 0.3)
     wt = 1 / np.abs(e)
@@ -192,10 +202,10 @@ def test_polish_moves_perturbed_poles_to_the_exact_ones():
 
 
 def test_polish_keeps_poles_stable_and_the_conductor_at_zero():
-    # Drude + Lorentz (closed forms, REFERENCES item 8 and kkcheck.materials) with 1e-3 noise,
-    # fitted with one pair too many: whatever the polish does with the spare pair, every pole
-    # keeps Re a < 0, eps_inf > 0, the conductor term stays a pure 2 c_0/s, and the weighted
-    # misfit does not grow.
+    # Drude + Lorentz (closed forms of kkcheck.materials; Drude as pole pairs after Han, Dutton
+    # & Fan 2006) with 1e-3 noise, fitted with one pair too many: whatever the polish does with
+    # the spare pair, every pole keeps Re a < 0, eps_inf > 0, the conductor term stays a pure
+    # 2 c_0/s, and the weighted misfit does not grow.
     w = np.linspace(0.5, 6, 300)
     e0 = 1.0 + materials.drude(w, 8.0, 0.07) + materials.lorentz(w, 1.5, 2.8, 0.6)
     e = _noisy(e0, 1e-3, np.random.default_rng(7))
@@ -208,3 +218,35 @@ def test_polish_keeps_poles_stable_and_the_conductor_at_zero():
     assert m.n_pairs == start.model.n_pairs
     # the Drude conductivity wp^2/gamma = 64/0.07 is recovered to 1 % (common practice, no source)
     assert 2 * m.conductor_residue == pytest.approx(64.0 / 0.07, rel=0.01)
+
+
+def test_tol_keeps_the_fewest_entries_that_meet_it():
+    # Rakic et al., Appl. Opt. 37(22), 5271 (1998) gold (kkcheck.materials), noise-free, 0.5-6
+    # eV: the rms relative error, recomputed here from its definition, meets tol for the kept
+    # model, and every earlier step's leading fit in the table misses it.
+    w = np.linspace(0.5, 6, 300)
+    e = materials.rakic_ld(w)
+    r = fit_pole_pairs(w, e, tol=0.01)
+    rms = np.sqrt(np.mean(np.abs(r.model.eps(w) - e) ** 2 / np.abs(e) ** 2))
+    assert rms == pytest.approx(r.rms_rel, rel=1e-12) and rms <= 0.01
+    assert [row.n_start for row in r.order_table] == list(range(1, len(r.order_table) + 1))
+    assert all(row.rms_rel > 0.01 for row in r.order_table[:-1])
+    assert r.order_table[-1].rms_rel <= 0.01 and r.passivity.certified
+
+
+def test_fit_to_dict_is_the_summary_fit_block():
+    # closed form: Drude (conductor pole + one real pole) is one entry, fitted exactly; the
+    # block has the keys, in the order, of the committed demo summary.json (reports/demo), and
+    # JSON-safe numbers (NaN -> None, -0.0 -> 0.0, as json.dumps(allow_nan=False) requires)
+    w = np.linspace(0.3, 5, 300)
+    r = fit_pole_pairs(w, 1.0 + materials.drude(w, 8.0, 0.07))
+    d = r.to_dict()
+    demo = Path(__file__).resolve().parents[1] / "reports" / "demo" / "summary.json"
+    committed = json.loads(demo.read_text(encoding="utf-8"))["fit"]
+    assert list(d) == list(committed) and d["weighting"] == committed["weighting"] == WEIGHTING
+    assert d["pairs"] == 1 and d["rms_rel"] < 1e-10 and d["certified_passive"] and d["stable"]
+    assert d["range_ev"] == [0.3, 5.0] and d["notes"] == []
+    odd = replace(r, rms_rel=float("nan"), max_rel=-0.0).to_dict()
+    assert odd["rms_rel"] is None and str(odd["max_rel"]) == "0.0"
+    json.dumps(odd, allow_nan=False)
+    assert r.to_dict(weighting="1/|eps|")["weighting"] == "1/|eps|"

@@ -7,15 +7,16 @@ Public API
 ----------
 Model and physical terms (``model``)
     PolePairModel, model_from_terms, drude_pairs, lorentz_pairs, debye_pairs, physical_terms
-Fitting (``fit``, ``vfit``, ``order``)
-    fit_pole_pairs -> FitResult; vector_fit, polish_poles, starting_poles; OrderRow
+Fitting (``fit``, ``search``, ``vfit``, ``order``)
+    fit_pole_pairs -> FitResult (FitResult.to_dict: the summary.json "fit" block; WEIGHTING);
+    the order search over Candidate records; vector_fit, polish_poles, starting_poles; OrderRow
 Passivity (``passivity``)
     certify_passivity, dense_passivity_check, enforce_passivity, pair_is_passive
 Export (``io``)
     model_to_dict, model_to_json, model_from_json, parameter_table
 """
 
-from .fit import FitResult, detect_conductor, fit_pole_pairs
+from .fit import WEIGHTING, FitResult, detect_conductor, fit_pole_pairs
 from .io import ModelRecord, model_from_json, model_to_dict, model_to_json, parameter_table
 from .model import (
     PhysicalTerm,
@@ -36,6 +37,7 @@ from .passivity import (
     enforce_passivity,
     pair_is_passive,
 )
+from .search import Candidate, SearchOutcome
 from .vfit import PolishResult, VectorFitResult, polish_poles, starting_poles, vector_fit
 
 __all__ = [
@@ -49,6 +51,9 @@ __all__ = [
     "FitResult",
     "fit_pole_pairs",
     "detect_conductor",
+    "WEIGHTING",
+    "Candidate",
+    "SearchOutcome",
     "VectorFitResult",
     "vector_fit",
     "PolishResult",

@@ -1,4 +1,4 @@
-"""model.json (schema "kkcheck.model/1", DESIGN.md) and a human-readable parameter table."""
+"""model.json (schema "kkcheck.model/1", README.md "Outputs") and a readable parameter table."""
 
 from __future__ import annotations
 
@@ -8,6 +8,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import InputError
+from ..options import FrequencyUnitChoice, check_choice
 from ..units import HBAR_EV_S
 from .model import PolePairModel, physical_terms
 
@@ -69,9 +70,7 @@ def model_to_dict(result, frequency_unit: str = "eV") -> dict:
     The conductor term 2 c_0/s is written as a pair with pole [0, 0] and residue [c_0, 0],
     which the form string covers (c/(s - 0) + conj(c)/(s - 0) = 2 c_0 / s).
     """
-    if frequency_unit not in _UNITS:
-        raise InputError("frequency_unit must be 'eV' or 'rad/s'")
-    k = _UNITS[frequency_unit]
+    k = _UNITS[check_choice("frequency_unit", frequency_unit, FrequencyUnitChoice)]
     m = result.model
     pairs = [
         {
@@ -125,9 +124,7 @@ def model_from_json(text: str) -> ModelRecord:
     if not isinstance(d, dict) or d.get("schema") != SCHEMA:
         raise InputError(f"expected a model.json document with schema {SCHEMA!r}")
     unit = d.get("frequency_unit")
-    if unit not in _UNITS:
-        raise InputError("model.json frequency_unit must be 'eV' or 'rad/s'")
-    k = _UNITS[unit]
+    k = _UNITS[check_choice("model.json frequency_unit", unit, FrequencyUnitChoice)]
     poles, res, c0 = [], [], None
     try:
         for p in d["pairs"]:

@@ -3,7 +3,7 @@
 References
 ----------
 .. [1] G. Schwarz, "Estimating the dimension of a model," Ann. Statist. 6(2), 461-464 (1978)
-   (Bayesian information criterion).
+   (Bayesian information criterion; from memory); see docs/references.md [Schwarz1978].
 """
 
 from __future__ import annotations

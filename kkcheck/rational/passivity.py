@@ -7,11 +7,20 @@ grid), :func:`enforce_passivity` (residue perturbation by constrained least squa
 References
 ----------
 .. [1] B. Gustavsen, A. Semlyen, "Enforcing passivity for admittance matrices approximated by
-   rational functions," IEEE Trans. Power Syst. 16(1), 97-104 (2001).
-.. [2] M. Han, R. W. Dutton, S. Fan, IEEE Microw. Wireless Compon. Lett. 16(3), 119 (2006)
-   (per-pair passivity condition; REFERENCES.md item 8).
+   rational functions," IEEE Trans. Power Syst. 16(1), 97-104 (2001) (volume and pages from
+   memory; the method confirmed); see docs/references.md [GustavsenSemlyen2001].
+.. [2] M. Han, R. W. Dutton, S. Fan, "Model dispersive media in finite-difference time-domain
+   method with complex-conjugate pole-residue pairs," IEEE Microw. Wireless Compon. Lett. 16(3),
+   119-121 (2006) (volume and pages from memory): the pole-pair form whose per-pair passivity
+   condition :func:`pair_is_passive` tests (the condition is derived here, not from the paper);
+   see docs/references.md [Han2006] and [PolePairAlgebra].
 .. [3] C. L. Lawson, R. J. Hanson, *Solving Least Squares Problems*, Prentice-Hall (1974),
-   ch. 23 (least distance programming through NNLS).
+   ch. 23 (least distance programming through NNLS; from memory); see docs/references.md
+   [LawsonHanson1974].
+.. [4] S. Grivet-Talocia, "Passivity enforcement via perturbation of Hamiltonian matrices,"
+   IEEE Trans. Circuits Syst. I 51(9), 1755-1769 (2004): the general (matrix) whole-axis test,
+   whose scalar shortcut :func:`certify_passivity` uses; see docs/references.md
+   [GrivetTalocia2004] and [ScalarPassivity] (the shortcut, derived in the project).
 """
 
 from __future__ import annotations
@@ -196,7 +205,7 @@ def numerator_matrix(model: PolePairModel) -> tuple[np.ndarray, float]:
 
 
 def pair_is_passive(pole: complex, residue: complex) -> bool:
-    """Per-pair test (REFERENCES item 8): Re c >= 0 and Re c (al^2 - be^2) - 2 al be Im c >= 0.
+    """Per-pair test: Re c >= 0 and Re c (al^2 - be^2) - 2 al be Im c >= 0 (a = -al + i be).
 
     Necessary and sufficient for one complex pair alone (a = -alpha + i beta, alpha > 0);
     sufficient, not necessary, for a sum of pairs. For a real pole it reduces to c >= 0.
@@ -204,7 +213,17 @@ def pair_is_passive(pole: complex, residue: complex) -> bool:
     Notes
     -----
     Our c equals the residue of the engineering (exp(+j w t)) form at the same pole, since both
-    conventions use the same function of s; the condition carries over unchanged.
+    conventions use the same function of s; the condition carries over unchanged. Derived here
+    from the loss of one pair, eps2_p(w) = w [2 al b0 - b1 (w0^2 - w^2)] / [(w0^2 - w^2)^2 +
+    4 al^2 w^2] with b1 = 2 Re c, b0 = 2 (al Re c - be Im c), w0^2 = al^2 + be^2: eps2_p >= 0
+    for all w > 0 exactly when b1 >= 0 and 2 al b0 - b1 w0^2 >= 0 (no published source).
+
+    References
+    ----------
+    .. [1] M. Han, R. W. Dutton, S. Fan, "Model dispersive media in finite-difference
+       time-domain method with complex-conjugate pole-residue pairs," IEEE Microw. Wireless
+       Compon. Lett. 16(3), 119-121 (2006) (the pair form; volume and pages from memory); see
+       docs/references.md [PolePairAlgebra] for the derivation.
     """
     alpha, beta = -pole.real, pole.imag
     cr, ci = residue.real, residue.imag
@@ -260,7 +279,8 @@ def certify_passivity(model: PolePairModel) -> PassivityCertificate:
     Notes
     -----
     For a real rational model eps2(w) = w P(w^2)/Q(w^2) with Q = prod_p D_p > 0 on w > 0 when
-    all poles are stable (REFERENCES item 7, scalar shortcut). P is assembled from the per-entry
+    all poles are stable (the scalar shortcut of the Hamiltonian test [1]_, derived here: no
+    eigenvalue problem is needed for one response). P is assembled from the per-entry
     closed forms (see :class:`~kkcheck.rational.model.PolePairModel`) in u = w^2/xs, with xs the
     geometric mean of |a_p|^2 for conditioning. P changes sign only at its positive real roots,
     so eps2 is evaluated (directly from the partial fractions, not from P) at the real parts of
@@ -274,7 +294,10 @@ def certify_passivity(model: PolePairModel) -> PassivityCertificate:
 
     References
     ----------
-    .. [1] REFERENCES.md item 7, "Scalar eps shortcut (exact, no Hamiltonian)".
+    .. [1] S. Grivet-Talocia, "Passivity enforcement via perturbation of Hamiltonian matrices,"
+       IEEE Trans. Circuits Syst. I 51(9), 1755-1769 (2004) (the matrix test this shortcut
+       replaces; the shortcut itself has no published source: docs/references.md
+       [ScalarPassivity]).
     """
     stable = bool(np.all(model.poles.real < 0) and model.eps_inf > 0)
     method = (
@@ -298,6 +321,31 @@ def certify_passivity(model: PolePairModel) -> PassivityCertificate:
     mag = np.abs(mat) @ np.abs(theta)
     low_sign = _trim_sign(coef, mag, from_top=False)
     high_sign = _trim_sign(coef, mag, from_top=True)
+    pts, test_w = _test_energies(model, coef, mag, xs)
+    terms = model.eps2_terms(test_w)
+    val = terms.sum(axis=-1)
+    tol = ROUNDOFF_RTOL * np.abs(terms).sum(axis=-1)
+    bands = _negative_bands(test_w, val < -tol, low_sign, high_sign)
+    min_val, min_w, crossings = _refine_bands(model, bands, test_w, val, pts)
+    certified = stable and not bands
+    return PassivityCertificate(
+        certified,
+        min_val,
+        min_w,
+        tuple(sorted(set(crossings))),
+        tuple(bands),
+        stable,
+        method,
+        ROUNDOFF_RTOL,
+    )
+
+
+def _test_energies(model: PolePairModel, coef, mag, xs: float):
+    """(positive real roots of P as energies [eV], all test energies [eV], sorted).
+
+    The test energies are those roots, the geometric midpoints between them, a decade beyond
+    either end, and :func:`_safety_points`; without a positive root, sqrt(xs) stands in.
+    """
     nz = np.nonzero(np.abs(coef) > ROUNDOFF_RTOL * np.maximum(mag, 1e-300))[0]
     pts = np.zeros(0)
     if nz.size > 1:
@@ -309,13 +357,16 @@ def certify_passivity(model: PolePairModel) -> PassivityCertificate:
         pts = np.array([np.sqrt(xs)])
     mids = np.sqrt(pts[1:] * pts[:-1])
     ends = np.array([pts[0] / 10, pts[-1] * 10])
-    test_w = np.unique(np.concatenate([pts, mids, ends, _safety_points(model)]))
-    terms = model.eps2_terms(test_w)
-    val = terms.sum(axis=-1)
-    tol = ROUNDOFF_RTOL * np.abs(terms).sum(axis=-1)
-    bad = val < -tol
-    # sign between points: use midpoints (odd indices are roots/midpoints alternately)
-    crossings, bands = [], []
+    return pts, np.unique(np.concatenate([pts, mids, ends, _safety_points(model)]))
+
+
+def _negative_bands(test_w, bad, low_sign: float, high_sign: float) -> list:
+    """Bands (lo, hi) [eV] of consecutive negative test points; 0 / inf at open ends.
+
+    The limits w -> 0 and w -> inf are negative when the lowest / highest non-negligible
+    coefficient of P is (``low_sign`` / ``high_sign`` < 0).
+    """
+    bands = []
     neg = list(bad)
     if low_sign < 0:
         neg[0] = True
@@ -331,7 +382,16 @@ def certify_passivity(model: PolePairModel) -> PassivityCertificate:
             start = None
     if start is not None:
         bands.append((start, float("inf")))
-    # refine band edges to the roots they contain and find the minimum inside each band
+    return bands
+
+
+def _refine_bands(model: PolePairModel, bands, test_w, val, pts):
+    """(min eps2, its energy [eV], crossing energies [eV]) after a search inside each band.
+
+    The minimum of eps2 over the test points is refined by a bounded search in log energy
+    inside each band; each finite band edge is moved to the nearest root of P.
+    """
+    crossings = []
     min_val, min_w = float(val.min()), float(test_w[int(np.argmin(val))])
     for lo, hi in bands:
         lo_r = lo if lo > 0 else test_w[0] / 1e3
@@ -347,17 +407,7 @@ def certify_passivity(model: PolePairModel) -> PassivityCertificate:
         for edge in (lo, hi):
             if 0 < edge < np.inf:
                 crossings.append(float(pts[np.argmin(np.abs(np.log(pts / edge)))]))
-    certified = stable and not bands
-    return PassivityCertificate(
-        certified,
-        min_val,
-        min_w,
-        tuple(sorted(set(crossings))),
-        tuple(bands),
-        stable,
-        method,
-        ROUNDOFF_RTOL,
-    )
+    return min_val, min_w, crossings
 
 
 def dense_passivity_check(

@@ -3,14 +3,16 @@
 References
 ----------
 .. [1] B. Gustavsen, A. Semlyen, "Rational approximation of frequency domain responses by
-   vector fitting," IEEE Trans. Power Deliv. 14(3), 1052-1061 (1999).
+   vector fitting," IEEE Trans. Power Deliv. 14(3), 1052-1061 (1999) (volume and pages from
+   memory); see docs/references.md [GustavsenSemlyen1999].
 .. [2] B. Gustavsen, "Improving the pole relocating properties of vector fitting," IEEE Trans.
-   Power Deliv. 21(3), 1587-1592 (2006).
+   Power Deliv. 21(3), 1587-1592 (2006) (from memory); see docs/references.md [Gustavsen2006].
 .. [3] Y. Nakatsukasa, O. Sete, L. N. Trefethen, "The AAA algorithm for rational
-   approximation," SIAM J. Sci. Comput. 40(3), A1494-A1522 (2018).
+   approximation," SIAM J. Sci. Comput. 40(3), A1494-A1522 (2018); see docs/references.md
+   [Nakatsukasa2018].
 .. [4] B. Gustavsen, A. Semlyen, "Rational approximation of frequency domain responses by
    vector fitting," IEEE Trans. Power Deliv. 14(3), 1052-1061 (1999), sec. on the choice of
-   starting poles (same paper as [1]).
+   starting poles (same paper as [1]; from memory).
 """
 
 from __future__ import annotations
@@ -402,6 +404,55 @@ def _rss(model, w, f, w1, w2):
     return float(r @ r)
 
 
+def _projected_solve(a, cond, w, f, w1, w2):
+    """(Q, theta, residual) of the weighted linear fit with poles ``a`` fixed (thin QR).
+
+    theta is the least-squares solution (columns scaled to unit norm); when its eps_inf falls
+    below :data:`_EPS_INF_FLOOR` it is fixed there and the rest re-solved (an active set).
+    The residual W X theta - W eps is projected off the columns of Q (guards round-off).
+    """
+    am, b = _weighted_system(a, cond, w, f, w1, w2)
+    cn = np.linalg.norm(am, axis=0)
+    cn[cn == 0] = 1.0
+    q, r = np.linalg.qr(am / cn)
+    theta = np.linalg.lstsq(r, q.T @ b, rcond=None)[0] / cn
+    if theta[0] < _EPS_INF_FLOOR:  # keep eps_inf > 0: fix it at the floor (active set)
+        q, r = np.linalg.qr(am[:, 1:] / cn[1:])
+        rest = b - _EPS_INF_FLOOR * am[:, 0]
+        sub = np.linalg.lstsq(r, q.T @ rest, rcond=None)[0] / cn[1:]
+        theta = np.concatenate([[_EPS_INF_FLOOR], sub])
+    res = am @ theta - b
+    res = res - q @ (q.T @ res)  # exact projection, guards round-off
+    return q, theta, res
+
+
+def _projected_jacobian(a, pair, alpha, theta, q, s, w1, w2):
+    """Kaufman's variable-projection Jacobian (I - Q Q^T) d(W X)/dp theta.
+
+    Columns: d/du_j for every pole (a_j = -exp(u_j) [+ i beta_j]; ``alpha`` = exp(u_j) =
+    -Re a_j), then d/dbeta_j for every pair, in pole order; ``s`` = -i w.
+    """
+    cols = []
+    k = 1
+    dbeta = []
+    for j, aj in enumerate(a):
+        if pair[j]:
+            c = complex(theta[k], theta[k + 1])
+            k += 2
+            g1, g2 = 1 / (s - aj) ** 2, 1 / (s - np.conj(aj)) ** 2
+            d_re = c * g1 + np.conj(c) * g2  # d eps / d Re a
+            d_im = 1j * c * g1 - 1j * np.conj(c) * g2  # d eps / d Im a
+            cols.append(-alpha[j] * d_re)
+            dbeta.append(d_im)
+        else:
+            c = theta[k]
+            k += 1
+            cols.append(-alpha[j] * 2 * c / (s - aj) ** 2)
+    d = np.stack(cols + dbeta, axis=-1)
+    dm = np.vstack([d.real * w1[:, None], d.imag * w2[:, None]])
+    return dm - q @ (q.T @ dm)
+
+
 def polish_poles(
     energy_ev, eps, model, weight1, weight2, *, max_evaluations: int = 60, ftol: float = 1e-8
 ) -> PolishResult:
@@ -456,9 +507,10 @@ def polish_poles(
     ----------
     .. [1] G. H. Golub, V. Pereyra, "The differentiation of pseudo-inverses and nonlinear least
        squares problems whose variables separate," SIAM J. Numer. Anal. 10(2), 413-432 (1973)
-       (from memory).
+       (from memory); see docs/references.md [GolubPereyra1973].
     .. [2] L. Kaufman, "A variable projection method for solving separable nonlinear least
-       squares problems," BIT 15, 49-57 (1975) (from memory).
+       squares problems," BIT 15, 49-57 (1975) (from memory); see docs/references.md
+       [Kaufman1975].
     """
     from scipy.optimize import least_squares
 
@@ -489,24 +541,12 @@ def polish_poles(
     x0 = np.clip(x0, lb + 1e-9 * np.abs(lb), ub - 1e-9 * np.abs(ub))
     cache = {}
 
-    def solve(p):
+    def solve(p):  # one projection per pole set: fun and jac at the same p share it
         key = p.tobytes()
         if key not in cache:
             a = poles_of(p)
-            am, b = _weighted_system(a, cond, w, f, w1, w2)
-            cn = np.linalg.norm(am, axis=0)
-            cn[cn == 0] = 1.0
-            q, r = np.linalg.qr(am / cn)
-            theta = np.linalg.lstsq(r, q.T @ b, rcond=None)[0] / cn
-            if theta[0] < _EPS_INF_FLOOR:  # keep eps_inf > 0: fix it at the floor (active set)
-                q, r = np.linalg.qr(am[:, 1:] / cn[1:])
-                rest = b - _EPS_INF_FLOOR * am[:, 0]
-                sub = np.linalg.lstsq(r, q.T @ rest, rcond=None)[0] / cn[1:]
-                theta = np.concatenate([[_EPS_INF_FLOOR], sub])
-            res = am @ theta - b
-            res = res - q @ (q.T @ res)  # exact projection, guards round-off
             cache.clear()
-            cache[key] = (a, q, theta, res)
+            cache[key] = (a, *_projected_solve(a, cond, w, f, w1, w2))
         return cache[key]
 
     def fun(p):
@@ -514,26 +554,7 @@ def polish_poles(
 
     def jac(p):
         a, q, theta, _ = solve(p)
-        cols = []
-        k = 1
-        u = np.exp(p[: a0.size])
-        dbeta = []
-        for j, aj in enumerate(a):
-            if pair[j]:
-                c = complex(theta[k], theta[k + 1])
-                k += 2
-                g1, g2 = 1 / (s - aj) ** 2, 1 / (s - np.conj(aj)) ** 2
-                d_re = c * g1 + np.conj(c) * g2  # d eps / d Re a
-                d_im = 1j * c * g1 - 1j * np.conj(c) * g2  # d eps / d Im a
-                cols.append(-u[j] * d_re)
-                dbeta.append(d_im)
-            else:
-                c = theta[k]
-                k += 1
-                cols.append(-u[j] * 2 * c / (s - aj) ** 2)
-        d = np.stack(cols + dbeta, axis=-1)
-        dm = np.vstack([d.real * w1[:, None], d.imag * w2[:, None]])
-        return dm - q @ (q.T @ dm)
+        return _projected_jacobian(a, pair, np.exp(p[: a0.size]), theta, q, s, w1, w2)
 
     sol = least_squares(
         fun,
