@@ -4,7 +4,7 @@ Read tables of n,k or eps1,eps2 from several instruments, merge them onto one ph
 axis, flag spikes and steps, test Kramers–Kronig consistency, repair, and fit a passive,
 stable pole-residue model. See README.md for the command line and DEVELOPERS.md for the layout.
 
-Python API (mirrors the command line; each returns a :class:`kkcheck.pipeline.JobResult`)
+Python API (mirrors the command line; each returns a :class:`kkcheck.result.JobResult`)
     check(inputs, out_dir=None, **options)   read, merge, clean, KK test
     fit(inputs, out_dir=None, **options)     ... and repair, pole-pair fit, slab check
     run(config, out_dir=None)                the whole job from a TOML config

@@ -1,7 +1,7 @@
 """Vet every dataset in a folder, in parallel, on local processes or on a Dask cluster.
 
 Each table file in the folder (``.csv .tsv .txt .dat .tab``) is one single-source dataset; each
-``.toml`` file is a job config (:func:`kkcheck.pipeline.load_config`) and may merge several
+``.toml`` file is a job config (:func:`kkcheck.job.load_config`) and may merge several
 tables (keep those tables in a subfolder, or they are also vetted on their own). The folder is
 not searched recursively. Every item runs in its own worker; a file that cannot be read
 becomes an ``error`` row in the index (with the file, the line and what was expected) and does

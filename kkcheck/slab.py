@@ -233,3 +233,16 @@ def compare_slab(
         _readonly_rt(a),
         _readonly_rt(b),
     )
+
+
+def compare_slab_over(
+    range_ev: tuple[float, float], energy_ev, eps_table, model, thickness_nm: float = 100.0
+) -> SlabComparison:
+    """:func:`compare_slab` restricted to the table rows inside ``range_ev`` (the fitted range).
+
+    A model is compared with the data only where it was fitted; outside, it is not valid.
+    """
+    lo, hi = range_ev
+    e = np.asarray(energy_ev, float)
+    inside = (e >= lo) & (e <= hi)
+    return compare_slab(e[inside], np.asarray(eps_table)[inside], model, thickness_nm)

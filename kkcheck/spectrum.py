@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-__all__ = ["Flag", "Provenance", "Dataset", "Spectrum", "flag_names"]
+__all__ = ["Flag", "Provenance", "Dataset", "Spectrum", "flag_names", "first_of_each_energy"]
 
 
 class Flag(enum.IntFlag):
@@ -35,6 +35,19 @@ class Flag(enum.IntFlag):
 def flag_names(value: int) -> list[str]:
     """Lower-case names of the bits set in ``value`` (``[]`` for none)."""
     return [f.name.lower() for f in Flag if int(value) & int(f)]
+
+
+def first_of_each_energy(energy_ev) -> np.ndarray:
+    """Indices of the first point at each distinct energy of a non-decreasing axis.
+
+    The one rule for duplicate energies (two sources kept side by side in an overlap) in the
+    stages that need a strictly increasing axis (sum rules, the pole-pair fit): the first point
+    at an energy is used, in the merge's order.
+    """
+    e = np.asarray(energy_ev, float)
+    if e.size == 0:
+        return np.zeros(0, dtype=int)
+    return np.flatnonzero(np.r_[True, np.diff(e) > 0])
 
 
 def readonly_array(a, dtype=float) -> np.ndarray:
@@ -132,6 +145,23 @@ class Dataset:
     def range_ev(self) -> tuple[float, float]:
         """(lowest, highest) photon energy [eV]."""
         return float(self.energy_ev[0]), float(self.energy_ev[-1])
+
+    def to_dict(self) -> dict:
+        """This source's entry in the ``inputs`` list of summary.json."""
+        from .jsonsafe import json_float
+
+        return {
+            "path": self.provenance.path,
+            "name": self.name,
+            "sha256": self.provenance.sha256,
+            "points": len(self),
+            "axis": self.axis,
+            "quantity": self.quantity,
+            "range_ev": [json_float(self.range_ev[0]), json_float(self.range_ev[1])],
+            "convention": self.convention,
+            "converted": bool(self.converted),
+            "notes": list(self.provenance.notes),
+        }
 
     def __len__(self) -> int:
         return int(self.energy_ev.size)

@@ -382,9 +382,10 @@ def test_to_dict_is_json_safe_and_carries_the_estimates():
 
 
 def test_to_dict_is_the_merge_block_of_the_summary():
-    # The summary.json "merge" block of a whole job (pipeline.build_summary) is what
+    # The summary.json "merge" block of a whole job (kkcheck.report.summary.build_summary) is what
     # MergeResult.to_dict writes, ranking included.
-    from kkcheck.pipeline import JobOptions, analyse, build_summary
+    from kkcheck.pipeline import JobOptions, analyse
+    from kkcheck.report.summary import build_summary
 
     ds = _lorentz_sources(1.05)
     res = analyse(ds, JobOptions(max_points=400))

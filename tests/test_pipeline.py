@@ -174,3 +174,30 @@ def test_source_ranking_bins_large_spectra_like_the_main_test(monkeypatch):
     res = analyse(ds, JobOptions(max_points=400))
     assert res.ranking is not None and len(seen) >= 3  # baseline + one trial per source + main
     assert max(seen) < 1000, seen  # 2400 points in, about 400 (plus sharp points) analysed
+
+
+def test_choice_options_are_checked_once_up_front_with_the_choices_listed():
+    # issue 9: string options are Literal aliases checked when the options are made (common
+    # practice, no source); the message names the option and every allowed value
+    from kkcheck.errors import InputError
+    from kkcheck.job import JobOptions
+
+    with pytest.raises(InputError, match=r"flagged = 'drop' is not a choice; expected one of "
+                       r"keep, downweight, replace"):
+        JobOptions(flagged="drop")
+    with pytest.raises(InputError, match="overlap = 'mean'"):
+        JobOptions(overlap="mean")
+    assert JobOptions(flagged="keep").flag_policy.kk_sigma_factor == 1.0
+    assert JobOptions().flag_policy.repair_choice == "replace_flagged"
+
+
+def test_config_file_choice_error_names_the_file(tmp_path):
+    from kkcheck.errors import InputError
+    from kkcheck.job import load_config
+
+    cfg = tmp_path / "job.toml"
+    cfg.write_text('inputs = ["a.csv"]\n[clean]\nsteps = "smooth"\n', encoding="utf-8")
+    with pytest.raises(InputError) as info:
+        load_config(cfg)
+    assert info.value.path == str(cfg)
+    assert "steps = 'smooth' is not a choice; expected one of level, keep" in info.value.message

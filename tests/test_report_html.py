@@ -308,5 +308,6 @@ def test_kk_cautions_are_picked_by_code_not_by_text():
         notes=("offset of eps1: not detectable", "a constant offset look-alike", "gap note"),
         note_codes=("constant_offset", "gap", "gap"),
     )
-    result = SimpleNamespace(kk=kk, summary={"kk": {"notes": [*kk.notes, "binned note"]}})
+    binning = SimpleNamespace(note=lambda: "binned note")  # the binning record's own note
+    result = SimpleNamespace(kk=kk, binning=binning)
     assert _kk_cautions(result) == ["a constant offset look-alike", "gap note", "binned note"]

@@ -260,3 +260,18 @@ def sum_rules(
         window_ev=(float(x[0]), float(x[-1])),
         caution="; ".join(notes),
     )
+
+
+def spectrum_sum_rules(spectrum) -> SumRuleResult:
+    """:func:`sum_rules` of a merged spectrum, using the first point at each duplicate energy.
+
+    Parameters
+    ----------
+    spectrum : kkcheck.spectrum.Spectrum
+        Non-decreasing axis (sources side by side in an overlap share energies).
+    """
+    from ..spectrum import first_of_each_energy
+
+    idx = first_of_each_energy(spectrum.energy_ev)
+    eps = np.asarray(spectrum.eps)[idx]
+    return sum_rules(np.asarray(spectrum.energy_ev)[idx], eps.real, eps.imag)

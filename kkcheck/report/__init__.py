@@ -20,34 +20,32 @@ Documents
 Shared plain-text formatting of both documents: :mod:`.format`.
 """
 
-from .context import ReportContext, ReportFigure, library_versions
-from .figures import (
-    FIGURE_DPI,
-    plot_fit,
-    plot_kk,
-    plot_passivity,
-    plot_repaired,
-    plot_residuals,
-    plot_slab,
-    plot_sources,
-)
-from .html import build_html, write_html_report
-from .markdown import build_markdown, write_markdown_summary
+import importlib
 
-__all__ = [
-    "FIGURE_DPI",
-    "plot_sources",
-    "plot_kk",
-    "plot_residuals",
-    "plot_repaired",
-    "plot_fit",
-    "plot_passivity",
-    "plot_slab",
-    "ReportContext",
-    "ReportFigure",
-    "write_html_report",
-    "build_html",
-    "library_versions",
-    "write_markdown_summary",
-    "build_markdown",
-]
+#: public name -> submodule that defines it; loaded on first use, so that importing
+#: kkcheck.report.summary (the pipeline does) does not load matplotlib.
+_WHERE = {
+    "ReportContext": ".context",
+    "ReportFigure": ".context",
+    "library_versions": ".context",
+    "FIGURE_DPI": ".figures",
+    "plot_fit": ".figures",
+    "plot_kk": ".figures",
+    "plot_passivity": ".figures",
+    "plot_repaired": ".figures",
+    "plot_residuals": ".figures",
+    "plot_slab": ".figures",
+    "plot_sources": ".figures",
+    "build_html": ".html",
+    "write_html_report": ".html",
+    "build_markdown": ".markdown",
+    "write_markdown_summary": ".markdown",
+}
+
+__all__ = list(_WHERE)
+
+
+def __getattr__(name):
+    if name in _WHERE:
+        return getattr(importlib.import_module(_WHERE[name], __name__), name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

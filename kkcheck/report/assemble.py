@@ -142,7 +142,7 @@ def _model_figures(result, fig_dir: Path) -> list[ReportFigure]:
 
 
 def report_figures(result, fig_dir) -> list[ReportFigure]:
-    """Draw every figure of ``result`` (a :class:`kkcheck.pipeline.JobResult`) into ``fig_dir``.
+    """Draw every figure of ``result`` (a :class:`kkcheck.result.JobResult`) into ``fig_dir``.
 
     Returns
     -------
@@ -164,8 +164,10 @@ def _kk_cautions(result) -> list[str]:
     """The KK test's notes, except those the standard cautions already state (by code)."""
     kk = result.kk
     out = [n for n, c in zip(kk.notes, kk.note_codes) if c not in _NOTES_SHOWN_ELSEWHERE]
-    # summary.json lists the test's own notes first, then what the pipeline adds (binning)
-    out += list(result.summary["kk"].get("notes", [])[len(kk.notes) :])
+    binning = getattr(result, "binning", None)
+    binned = binning.note() if binning is not None else None
+    if binned is not None:
+        out.append(binned)
     return out
 
 
@@ -236,11 +238,11 @@ def _sum_rule_rows(r) -> dict:
 
 
 def report_context(result, figure_list=(), *, command: str = "") -> ReportContext:
-    """The :class:`ReportContext` of ``result`` (a :class:`kkcheck.pipeline.JobResult`).
+    """The :class:`ReportContext` of ``result`` (a :class:`kkcheck.result.JobResult`).
 
     Parameters
     ----------
-    result : kkcheck.pipeline.JobResult
+    result : kkcheck.result.JobResult
     figure_list : sequence of ReportFigure (or mappings with ``path``, ``caption``, ``title``)
         The figures to embed, e.g. from :func:`report_figures`.
     command : str

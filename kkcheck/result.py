@@ -1,0 +1,188 @@
+"""What one job produced: :class:`JobResult`, typed with each stage's own frozen result."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from .units import HC_EV_NM
+
+if TYPE_CHECKING:  # annotations only: importing the stages here would slow start-up
+    from .clean import CleanResult, StepCorrection
+    from .job import InputSpec, JobOptions
+    from .kk.binning import BinRecord
+    from .kk.consistency import KKTestResult
+    from .kk.sumrules import SumRuleResult
+    from .merge import MergeResult, ReferenceTrial
+    from .rational import FitResult
+    from .repair import RepairResult
+    from .slab import SlabComparison
+    from .spectrum import Dataset, Spectrum
+
+__all__ = ["JobResult"]
+
+
+@dataclass(frozen=True)
+class JobResult:
+    """Everything one job produced (stage results are the stages' own frozen types).
+
+    Attributes
+    ----------
+    options : JobOptions
+    inputs : tuple of InputSpec
+    datasets : tuple of Dataset
+    merge : MergeResult
+    ranking : tuple of ReferenceTrial or None
+        KK-based reference trials (best first), when run.
+    clean : CleanResult
+    steps : tuple of StepCorrection
+        Level shifts tried before the KK test (empty with ``steps="keep"``).
+    analysed : Spectrum
+        The spectrum the KK test, repair and fit ran on: the cleaned (and levelled) one, with
+        smooth stretches binned when it had more than ``options.max_points`` points.
+    binning : BinRecord
+    kk : KKTestResult
+    sum_rules : SumRuleResult
+    repair : RepairResult or None
+    fit : FitResult or None
+    slab : SlabComparison or None
+        The last three are present when the fit was asked for.
+    summary : dict
+        The content of summary.json.
+    model : dict or None
+        The content of model.json (the model object itself is ``fit.model``).
+    warnings : tuple of str
+        Every warning raised by a stage.
+    out_dir : pathlib.Path or None
+    files : tuple of pathlib.Path
+        Files written.
+    seconds : float
+        Wall time of the analysis.
+    """
+
+    options: JobOptions
+    inputs: tuple[InputSpec, ...]
+    datasets: tuple[Dataset, ...]
+    merge: MergeResult
+    ranking: tuple[ReferenceTrial, ...] | None
+    clean: CleanResult
+    steps: tuple[StepCorrection, ...]
+    analysed: Spectrum
+    binning: BinRecord
+    kk: KKTestResult
+    sum_rules: SumRuleResult
+    repair: RepairResult | None = None
+    fit: FitResult | None = None
+    slab: SlabComparison | None = None
+    summary: dict = field(default_factory=dict)
+    model: dict | None = None
+    warnings: tuple[str, ...] = ()
+    out_dir: Path | None = None
+    files: tuple[Path, ...] = ()
+    seconds: float = 0.0
+
+    def text_summary(self) -> str:
+        """A few lines for the terminal."""
+        lines = (
+            self._input_lines()
+            + self._merge_lines()
+            + self._clean_lines()
+            + self._kk_lines()
+            + self._fit_lines()
+        )
+        lines += [f"  warning: {w}" for w in self.warnings]
+        if self.out_dir is not None:
+            lines.append(f"wrote {len(self.files)} files to {self.out_dir}")
+        return "\n".join(lines)
+
+    def _input_lines(self) -> list[str]:
+        lines = []
+        for ds in self.datasets:
+            lo, hi = ds.range_ev
+            conv = " (converted from exp(+iwt))" if ds.converted else ""
+            lines.append(
+                f"  read {ds.provenance.path or ds.name}: {len(ds)} points, "
+                f"{lo:.4g}-{hi:.4g} eV, {ds.quantity}{conv}"
+            )
+        return lines
+
+    def _merge_lines(self) -> list[str]:
+        merge = self.summary.get("merge", {})
+        lines = [f"  source {s['name']}: {_source_text(s)}" for s in merge.get("sources", [])]
+        suspect = merge.get("suspect_source")
+        if suspect:
+            lines.append(f"  KK consistency points at source {suspect} as the one that is off")
+        for lo, hi in merge.get("gaps_ev", []):
+            lines.append(f"  gap: {lo:.4g}-{hi:.4g} eV")
+        return lines
+
+    def _clean_lines(self) -> list[str]:
+        lines = []
+        kinds: dict[str, int] = {}
+        for o in self.summary.get("outliers", []):
+            kinds[o["kind"]] = kinds.get(o["kind"], 0) + 1
+        if kinds:
+            lines.append(
+                "  flagged: "
+                + ", ".join(f"{v} {k}{'s' if v > 1 else ''}" for k, v in kinds.items())
+            )
+        for c in self.steps:
+            side = "above" if c.kept == "below" else "below"
+            what = f"the side {side} it was shifted to match" if c.applied else c.reason
+            lines.append(
+                f"  step in {c.source} at {c.energy_ev:.4g} eV: {c.component} jumps "
+                f"{c.jump:+.4g} ({c.relative:+.1%}); {what}"
+            )
+        b = self.binning
+        if b is not None and b.points_out != b.points_in:
+            lines.append(
+                f"  binned {b.points_in} points to {b.points_out} for the KK test "
+                "(sharp features, spikes and steps kept as measured)"
+            )
+        return lines
+
+    def _kk_lines(self) -> list[str]:
+        kk = self.kk
+        n = len(kk.regions)
+        lines = [
+            f"KK test: {kk.verdict.upper()} (chi2/dof {kk.chi2_dof:.3g}, "
+            f"{n} region{'s' if n != 1 else ''})"
+        ]
+        for r in kk.regions:
+            lines.append(
+                f"  {r.component} inconsistent {r.from_ev:.4g}-{r.to_ev:.4g} eV "
+                f"({HC_EV_NM / r.to_ev:.0f}-{HC_EV_NM / r.from_ev:.0f} nm), "
+                f"peak {r.severity:.1f} sigma"
+            )
+        return lines
+
+    def _fit_lines(self) -> list[str]:
+        lines = []
+        if self.fit is not None:
+            f = self.fit
+            cert = "certified passive" if f.passivity.certified else "NOT certified passive"
+            lines.append(
+                f"model: {f.n_pairs} pole entr{'ies' if f.n_pairs != 1 else 'y'}, rms rel. error "
+                f"{f.rms_rel:.2%}, {cert}, {'stable' if f.stable else 'UNSTABLE'}; valid only "
+                f"over {f.range_ev[0]:.4g}-{f.range_ev[1]:.4g} eV"
+            )
+        if self.slab is not None:
+            s = self.slab
+            lines.append(
+                f"slab check ({s.thickness_nm:g} nm film): max |dR| {s.max_dR:.2e} at "
+                f"{s.at_dR_ev:.4g} eV, max |dT| {s.max_dT:.2e} at {s.at_dT_ev:.4g} eV"
+            )
+        return lines
+
+
+def _source_text(s: dict) -> str:
+    """How one source of the merge block was placed, in words."""
+    if s.get("reference"):
+        return "reference"
+    if s["scale"] is None and s.get("overlap_points", 0) == 0:
+        return "no overlap with another source: scale and offset unknown"
+    if s["scale"] is None:
+        return "too little overlap to link it to the reference: scale and offset unknown"
+    how = f"scale {s['scale']:.4f}, eps1 offset {s['eps1_offset']:+.4f}"
+    return how + ("" if s.get("applied") else " (not applied)")
