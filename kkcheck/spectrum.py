@@ -12,11 +12,22 @@ from __future__ import annotations
 
 import enum
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
-__all__ = ["Flag", "Provenance", "Dataset", "Spectrum", "flag_names", "first_of_each_energy"]
+if TYPE_CHECKING:  # pandas is imported where a frame is made (start-up time)
+    import pandas as pd
+
+__all__ = [
+    "Flag",
+    "Provenance",
+    "Dataset",
+    "Spectrum",
+    "flag_names",
+    "first_of_each_energy",
+    "rounding_of_dataset",
+]
 
 
 class Flag(enum.IntFlag):
@@ -109,6 +120,10 @@ class Dataset:
         True when the imaginary part was negated to reach exp(-i w t).
     provenance : Provenance
         File, digest, row numbers and reader notes.
+    value_quantum : numpy.ndarray or None
+        Shape (N, 2): unit of the last printed digit of the two value cells of each point
+        (n, k or eps1, eps2, in the file's own quantity; ``"1.2340"`` -> 1e-4), aligned with
+        ``energy_ev``; None for data built in memory.
     """
 
     name: str
@@ -121,10 +136,16 @@ class Dataset:
     convention: str = "exp(-iwt)"
     converted: bool = False
     provenance: Provenance = field(default_factory=Provenance)
+    value_quantum: np.ndarray | None = None
 
     def __post_init__(self):
         e = _ro(self.energy_ev, float)
         eps = _ro(self.eps, complex)
+        if self.value_quantum is not None:
+            q = _ro(self.value_quantum, float)
+            if q.shape != (e.size, 2):
+                raise ValueError("value_quantum must have shape (len(energy_ev), 2)")
+            object.__setattr__(self, "value_quantum", q)
         if e.ndim != 1 or eps.shape != e.shape:
             raise ValueError("energy_ev and eps must be 1-D arrays of equal length")
         if e.size and (not np.all(np.isfinite(e)) or e[0] <= 0 or np.any(np.diff(e) <= 0)):
@@ -184,6 +205,8 @@ class Dataset:
             d["sigma_eps2"] = self.sigma_eps2
         if self.provenance.rows.size == self.energy_ev.size:
             d["row"] = self.provenance.rows
+        import pandas as pd
+
         return pd.DataFrame(d)
 
     @classmethod
@@ -206,6 +229,76 @@ class Dataset:
         s1 = f["sigma_eps1"].to_numpy(float) if "sigma_eps1" in f else None
         s2 = f["sigma_eps2"].to_numpy(float) if "sigma_eps2" in f else None
         return cls(name, f["energy_ev"].to_numpy(float), eps, s1, s2, **kwargs)
+
+
+def rounding_of_dataset(ds: Dataset) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Rounding standard uncertainty of eps1, eps2 and the zero-bound mask of one source.
+
+    Parameters
+    ----------
+    ds : Dataset
+        A source; without ``value_quantum`` the result is zeros and no bounds.
+
+    Returns
+    -------
+    rounding_eps1, rounding_eps2 : numpy.ndarray
+        [eps units], one per point.
+    zero_bound : numpy.ndarray of bool
+        True where the imaginary value (k or eps2) was printed as 0.
+
+    Notes
+    -----
+    A value printed with last-digit unit q is uniform within +-q/2 of the printed value, so
+    its standard uncertainty is q / sqrt(12) (GUM, JCGM 100:2008, section 4.3.7, rectangular
+    distribution; from memory). A value printed as exactly 0 is a bound, |v| < q/2, and gets
+    the whole quantum q as its uncertainty. The quantum of a cell is the finest among it and
+    its two neighbours on each side (tables written as shortest decimals lose trailing zeros:
+    ``2.710`` reads ``2.71``); a cell printed as 0 says nothing about the digits, so it takes
+    the finest quantum of the column's nonzero cells. For an n,k source the n and k parts are
+    propagated to eps with :func:`kkcheck.units.sigma_nk_to_eps`.
+
+    References
+    ----------
+    .. [1] JCGM 100:2008, "Evaluation of measurement data - Guide to the expression of
+       uncertainty in measurement", section 4.3.7 (from memory).
+    """
+    from .units import eps_to_nk, sigma_nk_to_eps
+
+    m = len(ds)
+    if ds.value_quantum is None:
+        return np.zeros(m), np.zeros(m), np.zeros(m, bool)
+    if ds.quantity == "nk":
+        v1, v2 = eps_to_nk(ds.eps)
+    else:
+        v1, v2 = ds.eps.real, ds.eps.imag
+    zero1 = np.abs(v1) < 0.5 * ds.value_quantum[:, 0]
+    zero2 = np.abs(v2) < 0.5 * ds.value_quantum[:, 1]
+    q = np.column_stack(
+        [
+            _effective_quantum(ds.value_quantum[:, 0], zero1),
+            _effective_quantum(ds.value_quantum[:, 1], zero2),
+        ]
+    )
+    u1 = np.where(zero1, q[:, 0], q[:, 0] / np.sqrt(12.0))
+    u2 = np.where(zero2, q[:, 1], q[:, 1] / np.sqrt(12.0))
+    if ds.quantity == "nk":
+        # a k bound near 0: propagate with k at its bound so eps2 gets 2 n q
+        u1, u2 = sigma_nk_to_eps(np.abs(v1), np.maximum(np.abs(v2), zero2 * q[:, 1]), u1, u2)
+    return u1, u2, zero2
+
+
+def _effective_quantum(q: np.ndarray, zero: np.ndarray) -> np.ndarray:
+    """Per-cell quantum: finest of the cell and 2 neighbours each side; zeros take the
+    finest quantum of the nonzero cells (see :func:`rounding_of_dataset`)."""
+    out = np.array(q, float)
+    if out.size == 0:
+        return out
+    if np.any(~zero):
+        finest = float(np.min(out[~zero]))
+        out[zero] = np.minimum(out[zero], finest)
+    pad = np.pad(out, 2, mode="edge")
+    win = np.lib.stride_tricks.sliding_window_view(pad, 5)
+    return win.min(axis=1)
 
 
 @dataclass(frozen=True)
@@ -236,6 +329,12 @@ class Spectrum:
         Source labels, in input order.
     source_quantity : tuple of str
         ``"nk"`` or ``"eps"`` per source.
+    rounding_eps1, rounding_eps2 : numpy.ndarray
+        Standard uncertainty of eps1 and eps2 from the printed precision of the file
+        [eps units] (:func:`rounding_of_dataset`); zeros when unknown (data built in memory).
+    zero_bound : numpy.ndarray of bool
+        True where the imaginary value (k or eps2) was printed as 0: a bound (below the last
+        printed digit), not a measured zero. All False when unknown.
     """
 
     energy_ev: np.ndarray
@@ -247,10 +346,18 @@ class Spectrum:
     flags: np.ndarray
     source_names: tuple[str, ...]
     source_quantity: tuple[str, ...]
+    rounding_eps1: np.ndarray | None = None
+    rounding_eps2: np.ndarray | None = None
+    zero_bound: np.ndarray | None = None
 
     def __post_init__(self):
         e = _ro(self.energy_ev, float)
         m = e.size
+        for name in ("rounding_eps1", "rounding_eps2"):
+            if getattr(self, name) is None:
+                object.__setattr__(self, name, np.zeros(m))
+        if self.zero_bound is None:
+            object.__setattr__(self, "zero_bound", np.zeros(m, bool))
         if e.ndim != 1 or (m and (e[0] <= 0 or np.any(np.diff(e) < 0))):
             raise ValueError("energy_ev must be 1-D, > 0 and non-decreasing")
         object.__setattr__(self, "energy_ev", e)
@@ -261,6 +368,9 @@ class Spectrum:
             ("source", int),
             ("row", int),
             ("flags", int),
+            ("rounding_eps1", float),
+            ("rounding_eps2", float),
+            ("zero_bound", bool),
         ):
             a = _ro(getattr(self, name), dt)
             if a.shape != (m,):
@@ -283,6 +393,7 @@ class Spectrum:
         m = len(ds)
         nan = np.full(m, np.nan)
         rows = ds.provenance.rows if ds.provenance.rows.size == m else np.zeros(m, int)
+        r1, r2, zero = rounding_of_dataset(ds)
         return cls(
             energy_ev=ds.energy_ev,
             eps=ds.eps,
@@ -293,6 +404,9 @@ class Spectrum:
             flags=np.zeros(m, int),
             source_names=(ds.name,),
             source_quantity=(ds.quantity,),
+            rounding_eps1=r1,
+            rounding_eps2=r2,
+            zero_bound=zero,
         )
 
     def replace(self, **changes) -> Spectrum:
@@ -315,6 +429,8 @@ class Spectrum:
         from .units import eps_to_nk
 
         n, k = eps_to_nk(self.eps)
+        import pandas as pd
+
         names = np.array(self.source_names, dtype=object)
         return pd.DataFrame(
             {

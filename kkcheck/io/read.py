@@ -153,6 +153,7 @@ def read_table(
     eps, s1, s2 = values_to_eps(parsed, lay, shown)
     eps, used, converted, note = _apply_convention(eps, parsed.v2, lay.quantity, convention)
     notes.extend(note)
+    quantum = _sorted_quantum(energy, parsed)
     energy, eps, s1, s2, rows_out, sort_notes = _sort_and_collapse(
         energy, eps, s1, s2, parsed, lay, converted, shown
     )
@@ -171,7 +172,18 @@ def read_table(
         convention=used,
         converted=converted,
         provenance=Provenance(path=shown, sha256=digest, rows=rows_out, notes=tuple(notes)),
+        value_quantum=quantum,
     )
+
+
+def _sorted_quantum(energy: np.ndarray, parsed: Parsed) -> np.ndarray | None:
+    """Printed-digit units (N, 2) of the value cells, in the order of the sorted, collapsed
+    points (the first row of each duplicate group, as :func:`_sort_and_collapse` keeps)."""
+    if parsed.q1 is None or parsed.q2 is None:
+        return None
+    order = np.argsort(energy, kind="stable")
+    _, start = np.unique(energy[order], return_index=True)
+    return np.column_stack([parsed.q1, parsed.q2])[order][start]
 
 
 def _check_options(axis, quantity, convention) -> tuple[str | None, str | None]:

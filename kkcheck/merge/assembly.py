@@ -18,7 +18,7 @@ import numpy as np
 from ..errors import InputError
 from ..jsonsafe import json_float
 from ..options import OverlapChoice, check_choice
-from ..spectrum import Dataset, Flag, Spectrum
+from ..spectrum import Dataset, Flag, Spectrum, rounding_of_dataset
 from .overlap import MIN_OVERLAP_POINTS, _determined, _pair_fits, _propagate
 from .sampling import _covers, _rows, _sigmas, find_gaps
 
@@ -393,7 +393,12 @@ def _side_by_side(datasets, names, c: _Corrected, gaps) -> Spectrum:
     rows = np.concatenate([_rows(d) for d in datasets])[order]
     ncov = sum(_covers(d, g, e).astype(int) for d, g in zip(datasets, gaps))
     flags = np.where(ncov >= 2, int(Flag.OVERLAP), 0)
-    return Spectrum(e, eps, s1[order], s2[order], src, rows, flags, tuple(names), quantity)
+    # printed-precision parts as written (a merge scale near 1 is not applied to them)
+    r = [rounding_of_dataset(d) for d in datasets]
+    r1, r2, zb = (np.concatenate([x[j] for x in r])[order] for j in range(3))
+    return Spectrum(
+        e, eps, s1[order], s2[order], src, rows, flags, tuple(names), quantity, r1, r2, zb
+    )
 
 
 def _blend(datasets, names, c: _Corrected, gaps) -> tuple[Spectrum, list[str]]:
@@ -441,7 +446,22 @@ def _blend(datasets, names, c: _Corrected, gaps) -> tuple[Spectrum, list[str]]:
             "of all sources covering them (linear interpolation onto the union grid)"
         )
     quantity = tuple(d.quantity for d in datasets)
-    return Spectrum(grid, eps, s1, s2, main, rows, flags, tuple(names), quantity), notes
+    r1, r2, zb = _rounding_on(datasets, grid, main)
+    spec = Spectrum(grid, eps, s1, s2, main, rows, flags, tuple(names), quantity, r1, r2, zb)
+    return spec, notes
+
+
+def _rounding_on(datasets, grid: np.ndarray, main: np.ndarray):
+    """Printed-precision parts (rounding_eps1, rounding_eps2, zero_bound) of each grid point,
+    from the source ``main[j]`` (its point nearest to ``grid[j]``; a blend is never coarser)."""
+    r1, r2, zb = np.zeros(grid.size), np.zeros(grid.size), np.zeros(grid.size, bool)
+    for i, d in enumerate(datasets):
+        sel = main == i
+        if sel.any():
+            a, b, z = rounding_of_dataset(d)
+            j = np.clip(np.searchsorted(d.energy_ev, grid[sel]), 0, len(d) - 1)
+            r1[sel], r2[sel], zb[sel] = a[j], b[j], z[j]
+    return r1, r2, zb
 
 
 def _nearest_rows(datasets, grid: np.ndarray, main: np.ndarray) -> np.ndarray:
