@@ -32,6 +32,7 @@ import numpy as np
 from numpy.polynomial import polynomial as npoly
 from scipy.optimize import minimize_scalar, nnls
 
+from .exact import decide_passive
 from .model import (
     PolePairModel,
     design_matrix,
@@ -81,6 +82,13 @@ class PassivityCertificate:
         Description of the test.
     tolerance : float
         Relative round-off tolerance used (:data:`ROUNDOFF_RTOL`).
+    margin_rel : float
+        Smallest eps2 / sum_p |eps2_p| over the test energies (float64; how far the model is
+        from the passivity boundary; NaN when not run).
+    exact_roots : int or None
+        Distinct roots of the numerator P on (0, inf) counted exactly (Sturm sequence in
+        integer arithmetic, :mod:`kkcheck.rational.exact`); None when the exact count was not
+        needed (a violation found in float64, or an unstable pole).
     """
 
     certified: bool
@@ -91,6 +99,8 @@ class PassivityCertificate:
     stable: bool
     method: str
     tolerance: float
+    margin_rel: float = float("nan")
+    exact_roots: int | None = None
 
 
 @dataclass(frozen=True)
@@ -301,19 +311,14 @@ def certify_passivity(model: PolePairModel) -> PassivityCertificate:
     """
     stable = bool(np.all(model.poles.real < 0) and model.eps_inf > 0)
     method = (
-        "roots of the eps2 numerator polynomial P(w^2) with sign tests between them "
-        f"(eps2 = w P(w^2)/Q(w^2)); round-off tolerance {ROUNDOFF_RTOL:g} relative"
+        "exact: Sturm count of the roots of the eps2 numerator P(w^2) on w > 0 in integer "
+        "arithmetic (eps2 = w P(w^2)/Q(w^2), Q > 0); bands located in float64 from the roots "
+        f"of P and each pole's resonance (tolerance {ROUNDOFF_RTOL:g} relative)"
     )
     if not np.all(model.poles.real < 0):
+        nan = float("nan")
         return PassivityCertificate(
-            False,
-            float("nan"),
-            float("nan"),
-            (),
-            (),
-            False,
-            method + "; not run: unstable pole",
-            ROUNDOFF_RTOL,
+            False, nan, nan, (), (), False, method + "; not run: unstable pole", ROUNDOFF_RTOL
         )
     theta = parameter_vector(model)[1:]
     mat, xs = numerator_matrix(model)
@@ -327,9 +332,17 @@ def certify_passivity(model: PolePairModel) -> PassivityCertificate:
     tol = ROUNDOFF_RTOL * np.abs(terms).sum(axis=-1)
     bands = _negative_bands(test_w, val < -tol, low_sign, high_sign)
     min_val, min_w, crossings = _refine_bands(model, bands, test_w, val, pts)
-    certified = stable and not bands
+    margin = float(np.min(val / np.maximum(np.abs(terms).sum(axis=-1), 1e-300)))
+    roots = None
+    passive = not bands
+    if passive:  # float64 found no violation: decide exactly (it may still be wrong)
+        exact = decide_passive(model)
+        roots, passive = exact.positive_roots, exact.passive
+        if not passive:
+            bands = [_exact_band(model, pts, test_w)]
+            min_val = min(min_val, 0.0)
     return PassivityCertificate(
-        certified,
+        stable and passive,
         min_val,
         min_w,
         tuple(sorted(set(crossings))),
@@ -337,7 +350,20 @@ def certify_passivity(model: PolePairModel) -> PassivityCertificate:
         stable,
         method,
         ROUNDOFF_RTOL,
+        margin,
+        roots,
     )
+
+
+def _exact_band(model: PolePairModel, pts, test_w) -> tuple:
+    """A band around the real roots of P when only the exact count saw them (sub-ulp bands).
+
+    The float64 roots of P nearest to a sign change are the best location at hand; without
+    any, the whole tested range is reported.
+    """
+    if pts.size:
+        return (float(pts.min()), float(pts.max()))
+    return (float(test_w[0]), float(test_w[-1]))
 
 
 def _test_energies(model: PolePairModel, coef, mag, xs: float):
