@@ -7,7 +7,8 @@ energy ranges overlap. The relation fitted is
 
 estimated by robust regression (Huber M-estimator, Huber 1964, solved by iteratively
 reweighted least squares, Holland & Welsch 1977) with standard errors; it is always reported
-and applied only on request, as eps_corrected = (eps - eps1_offset) / scale. Overlapping
+and applied, as eps_corrected = (eps - eps1_offset) / scale, only when the data determine it
+(:mod:`kkcheck.merge.decision`). Overlapping
 points are then blended by inverse-variance weights on the union of the grids or kept side by
 side with their source labels. Gaps in the merged axis are reported. Nothing is removed;
 every point keeps its source and file row. This stage comes first: it builds on
@@ -21,8 +22,10 @@ Gaps (:mod:`kkcheck.merge.sampling`)
     find_gaps, GAP_FACTOR, GAP_MIN_REL
 Merged spectrum (:mod:`kkcheck.merge.assembly`)
     merge, MergeResult, SourceReport
+Whether a correction is applied (:mod:`kkcheck.merge.decision`)
+    CorrectionDecision, ShapeCheck, MAX_CORRECTION
 Which source is off (:mod:`kkcheck.merge.ranking`)
-    rank_references, ReferenceTrial, RankMode, off_source
+    rank_references, ReferenceTrial, RankMode, off_source, ranking_note
 
 References
 ----------
@@ -34,8 +37,9 @@ References
 """
 
 from .assembly import MergeResult, SourceReport, merge
+from .decision import MAX_CORRECTION, CorrectionDecision, ShapeCheck
 from .overlap import MIN_OVERLAP_POINTS, ScaleFit, estimate_scale_offset
-from .ranking import RankMode, ReferenceTrial, off_source, rank_references
+from .ranking import RankMode, ReferenceTrial, off_source, rank_references, ranking_note
 from .sampling import GAP_FACTOR, GAP_MIN_REL, find_gaps
 
 __all__ = [
@@ -52,4 +56,8 @@ __all__ = [
     "merge",
     "rank_references",
     "off_source",
+    "ranking_note",
+    "MAX_CORRECTION",
+    "CorrectionDecision",
+    "ShapeCheck",
 ]

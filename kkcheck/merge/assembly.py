@@ -10,7 +10,7 @@ merged axis are reported. Nothing is removed; every point keeps its source and f
 from __future__ import annotations
 
 import warnings
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -19,7 +19,8 @@ from ..errors import InputError
 from ..jsonsafe import json_float
 from ..options import OverlapChoice, check_choice
 from ..spectrum import Dataset, Flag, Spectrum, rounding_of_dataset
-from .overlap import MIN_OVERLAP_POINTS, _determined, _pair_fits, _propagate
+from .decision import MAX_CORRECTION, CorrectionDecision, decide_corrections
+from .overlap import MIN_OVERLAP_POINTS, _pair_fits, _propagate
 from .sampling import _covers, _rows, _sigmas, find_gaps
 
 __all__ = ["SourceReport", "MergeResult", "merge"]
@@ -47,6 +48,9 @@ class SourceReport:
         source not linked to it).
     applied : bool
         True when eps was replaced by (eps - eps1_offset) / scale in the merged spectrum.
+    decision : CorrectionDecision or None
+        Why the correction was or was not applied (:mod:`kkcheck.merge.decision`); None for
+        the reference, an unlinked source and the trials of the source ranking.
     """
 
     name: str
@@ -58,6 +62,7 @@ class SourceReport:
     reference: bool
     n_overlap: int
     applied: bool
+    decision: CorrectionDecision | None = None
 
     def to_dict(self) -> dict:
         """The ``merge.sources[*]`` item of summary.json (NaN and infinities become null)."""
@@ -71,6 +76,7 @@ class SourceReport:
             "reference": bool(self.reference),
             "overlap_points": int(self.n_overlap),
             "applied": bool(self.applied),
+            "decision": self.decision.to_dict() if self.decision is not None else None,
         }
 
 
@@ -111,8 +117,9 @@ class MergeResult:
             The overlap choice to record (the job's option).
         ranking : sequence of ReferenceTrial, optional
             The trials of :func:`kkcheck.merge.rank_references`; when given (and not empty),
-            ``reference_ranking`` and ``suspect_source`` (:func:`kkcheck.merge.off_source`)
-            are added.
+            ``reference_ranking``, ``suspect_source`` (:func:`kkcheck.merge.off_source`, null
+            when it cannot tell) and ``ranking_note`` (:func:`kkcheck.merge.ranking_note`:
+            one sentence when no source is named, else null) are added.
         """
         block = {
             "reference": self.reference,
@@ -122,10 +129,11 @@ class MergeResult:
             "notes": list(self.notes),
         }
         if ranking:
-            from .ranking import off_source  # ranking builds on this module
+            from .ranking import off_source, ranking_note  # ranking builds on this module
 
             block["reference_ranking"] = [t.to_dict() for t in ranking]
             block["suspect_source"] = off_source(ranking)
+            block["ranking_note"] = ranking_note(ranking)
         return block
 
 
@@ -136,9 +144,11 @@ def merge(
     datasets: Sequence[Dataset],
     *,
     reference: str | int | None = None,
-    correct: bool = True,
+    correct: bool | str = True,
     overlap: OverlapChoice = "blend",
     min_overlap_points: int = MIN_OVERLAP_POINTS,
+    max_correction: float = MAX_CORRECTION,
+    kk_score: Callable[[Spectrum], float] | None = None,
 ) -> MergeResult:
     """Merge several sources onto one photon-energy axis.
 
@@ -147,20 +157,29 @@ def merge(
     datasets : sequence of Dataset
         The sources, each already on the canonical axis and convention (the reader's job).
     reference : str or int, optional
-        Name or index of the source the others are scaled to. Default: the source with the
-        most points inside other sources' ranges (ties: widest log-energy range, then input
-        order), i.e. the hub of the overlap graph, so that corrections need fewest links.
-    correct : bool
-        Replace eps by (eps - eps1_offset) / scale for every source linked to the
-        reference (default True; the job option ``correct``). The estimates are reported
-        either way.
+        Name or index of the source the others are scaled to. Default: the source covering
+        most of the visible band 380-750 nm (ties: centre nearest the log-middle of the merged
+        range, then input order); see :func:`_default_reference`.
+    correct : bool or "force"
+        True (default; the job option ``correct``): replace eps by (eps - eps1_offset) /
+        scale for a source linked to the reference when the data determine the correction
+        (every test of :mod:`kkcheck.merge.decision` passes). False: never. ``"force"``:
+        whenever the scale is usable (positive, 3 standard errors from zero), with a warning
+        for each failed test. The estimates and the decision are reported either way.
     overlap : {"blend", "side_by_side"}
         ``blend`` (default): one point per distinct energy of the union of all grids;
         where several sources cover it, the value is the inverse-variance weighted mean of
         each covering source linearly interpolated there. ``side_by_side``: every input
         point kept as is, sorted by energy, with its source label.
     min_overlap_points : int
-        Fewest points needed to fit two sources against each other (default 4).
+        Fewest points needed to fit two sources against each other (default 4; applying a
+        correction needs :data:`kkcheck.merge.decision.MIN_DECISION_POINTS`).
+    max_correction : float
+        Largest relative change a correction may make unless forced (default 0.10).
+    kk_score : callable, optional
+        ``kk_score(spectrum) -> float``, lower = more KK consistent (the pipeline passes the
+        score it gives :func:`kkcheck.merge.rank_references`); when given, a correction is
+        applied only if the merge scores lower with it than without.
 
     Returns
     -------
@@ -174,8 +193,10 @@ def merge(
     the composition along the path of the overlap graph with the smallest accumulated
     relative scale variance: S_C = s_BC S_B, O_C = s_BC O_B + o_BC, errors to first order.
     Applied correction: eps_corrected = (eps - eps1_offset) / scale, sigma / scale, only when
-    the scale is positive and at least three standard errors from zero (else reported, not
-    applied, with a RuntimeWarning).
+    the rule of :mod:`kkcheck.merge.decision` says the data determine it (enough overlap,
+    significant, compatible shapes, at most ``max_correction``, more KK consistent); else
+    reported, not applied, with the reasons (a RuntimeWarning for an undetermined scale, a
+    shape disagreement or a correction above ``max_correction``).
 
     Blend weights are 1/sigma^2 per component, sigma the given uncertainty or, when none
     was given, the white-noise estimate (:func:`kkcheck.noise.neighbour_noise_sigma`). The
@@ -187,12 +208,24 @@ def merge(
     median of the 5 neighbouring spacings on both sides and > 1 % of the energy).
     """
     names = _check(datasets, overlap)
+    if correct not in (True, False, "force"):
+        raise InputError(f'correct must be true, false or "force", got {correct!r}')
     n = len(datasets)
     ref, ref_note = _reference_index(datasets, names, reference)
-    fits = _propagate(n, ref, _pair_fits(datasets, min_overlap_points))
-    applied = [correct and i in fits and i != ref and _determined(fits[i][0]) for i in range(n)]
+    pairs = _pair_fits(datasets, min_overlap_points)
+    fits = _propagate(n, ref, pairs)
+    score = None
+    if kk_score is not None:
+
+        def score(corr) -> float:
+            return float(kk_score(_assemble(datasets, names, corr, overlap)[0]))
+
+    decisions = decide_corrections(
+        datasets, ref, fits, pairs, correct=correct, max_correction=max_correction, score=score
+    )
+    applied = [d is not None and d.applied for d in decisions]
     corr = _corrections(fits, applied)
-    notes = [ref_note] + _fit_notes(names, fits, ref, applied, correct, min_overlap_points)
+    notes = [ref_note] + _fit_notes(names, fits, ref, decisions, max_correction, min_overlap_points)
     for d in datasets:
         if d.converted:
             notes.append(f"{d.name}: was written in {d.convention} and converted by the reader")
@@ -202,7 +235,7 @@ def merge(
         notes.append(f"gap {a:.6g}-{b:.6g} eV: no data")
     return MergeResult(
         spectrum=spec,
-        sources=_reports(datasets, names, fits, ref, applied),
+        sources=_reports(datasets, names, fits, ref, applied, decisions),
         gaps_ev=gaps,
         reference=names[ref],
         overlap=overlap,
@@ -244,27 +277,43 @@ def _reference_index(datasets, names, reference) -> tuple[int, str]:
     return ref, f"reference {names[ref]!r} (chosen by the user)"
 
 
+#: The visible band [eV] (750-380 nm) the default reference rule prefers.
+VISIBLE_EV = (1.65, 3.26)
+
+
 def _default_reference(datasets: Sequence[Dataset]) -> tuple[int, str]:
-    """Index of the default reference and the rule, in words."""
-    counts = []
+    """Index of the default reference and the rule, in words.
+
+    Rule: the source covering most of the visible band 380-750 nm (fraction of its log
+    width), where absolute calibration is most direct (ellipsometry measures a ratio of two
+    polarisations; infrared reflectance and transmission tables depend on a reference
+    mirror or a KK extension, and tend to be the ones that need a scale); ties (within 1 %):
+    the source whose log-energy centre lies nearest the log-middle of the whole merged
+    range; then input order. Not the source with the most points: a dense table is not a
+    better calibrated one. Common practice, no source.
+    """
+    lv, hv = np.log(VISIBLE_EV[0]), np.log(VISIBLE_EV[1])
+    lo = min(np.log(d.range_ev[0]) for d in datasets)
+    hi = max(np.log(d.range_ev[1]) for d in datasets)
+    mid = 0.5 * (lo + hi)
+    key = []
     for i, d in enumerate(datasets):
-        inside = np.zeros(len(d), bool)
-        for j, o in enumerate(datasets):
-            if j != i:
-                inside |= (d.energy_ev >= o.range_ev[0]) & (d.energy_ev <= o.range_ev[1])
-        counts.append(int(inside.sum()))
-    widths = [np.log(d.range_ev[1] / d.range_ev[0]) for d in datasets]
-    order = sorted(range(len(datasets)), key=lambda i: (-counts[i], -widths[i], i))
+        a, b = np.log(d.range_ev[0]), np.log(d.range_ev[1])
+        frac = max(0.0, min(b, hv) - max(a, lv)) / (hv - lv)
+        key.append((-round(frac, 2), abs(0.5 * (a + b) - mid), i))
+    ref = min(range(len(datasets)), key=lambda i: key[i])
     rule = (
-        "default rule: the source with the most points inside other sources' ranges "
-        "(ties: widest log-energy range, then input order)"
+        "default rule: the source covering most of the visible band 380-750 nm, where "
+        "absolute calibration is most direct (ties: centre nearest the middle of the merged "
+        "range, then input order); override with reference"
     )
-    return order[0], rule
+    return ref, rule
 
 
-def _fit_notes(names, fits, ref, applied, correct, min_overlap_points) -> list[str]:
-    """One note per non-reference source (its estimate, applied or not); warns when unlinked
-    or when a correction was asked for but the scale is undetermined."""
+def _fit_notes(names, fits, ref, decisions, max_correction, min_overlap_points) -> list[str]:
+    """One note per non-reference source (its estimate and the decision, with the reasons);
+    warns when a source is unlinked, its scale undetermined, the shapes differ or the
+    correction is larger than ``max_correction`` (applied or not)."""
     notes = []
     for i in range(len(names)):
         if i == ref:
@@ -277,20 +326,25 @@ def _fit_notes(names, fits, ref, applied, correct, min_overlap_points) -> list[s
             notes.append(msg)
             warnings.warn(msg, RuntimeWarning, stacklevel=3)
             continue
-        f = fits[i][0]
-        if correct and not _determined(f):
-            msg = (
-                f"{names[i]}: scale {f.scale:.3g} +- {f.scale_sigma:.2g} relative to "
-                f"{names[ref]!r} is not determined by the overlap (expected a positive scale "
-                "at least 3 standard errors from zero); merged as measured"
-            )
-            warnings.warn(msg, RuntimeWarning, stacklevel=3)
-        notes.append(
+        f, d = fits[i][0], decisions[i]
+        state = "applied" + (" (forced)" if d.forced else "") if d.applied else "not applied"
+        why = "; ".join(d.reasons)
+        msg = (
             f"{names[i]}: scale {f.scale:.4f} +- {f.scale_sigma:.4f}, eps1 offset "
-            f"{f.eps1_offset:.4g} +- {f.eps1_offset_sigma:.2g} relative to {names[ref]!r}; "
-            + ("applied" if applied[i] else "not applied")
+            f"{f.eps1_offset:.4g} +- {f.eps1_offset_sigma:.2g} relative to {names[ref]!r} "
+            f"(changes it by {100 * d.size:.3g} % in the overlap); {state}"
+            + (f": {why}" if why else "")
             + (f" ({f.note})" if f.note else "")
         )
+        notes.append(msg)
+        serious = (
+            d.size > max_correction
+            or not d.shape.compatible
+            or d.forced
+            or any("not determined" in r for r in d.reasons)
+        )
+        if serious and not any("switched off" in r for r in d.reasons):
+            warnings.warn(msg, RuntimeWarning, stacklevel=3)
     return notes
 
 
@@ -302,10 +356,11 @@ def _corrections(fits, applied) -> list[tuple[float, float] | None]:
     return out
 
 
-def _reports(datasets, names, fits, ref, applied) -> tuple[SourceReport, ...]:
+def _reports(datasets, names, fits, ref, applied, decisions=None) -> tuple[SourceReport, ...]:
     """One SourceReport per source; NaN estimates for a source ``fits`` does not hold."""
     out = []
     nan = float("nan")
+    decisions = decisions if decisions is not None else [None] * len(datasets)
     for i, d in enumerate(datasets):
         if i in fits:
             f, npts = fits[i]
@@ -320,6 +375,7 @@ def _reports(datasets, names, fits, ref, applied) -> tuple[SourceReport, ...]:
                     i == ref,
                     npts,
                     bool(applied[i]),
+                    decisions[i],
                 )
             )
         else:

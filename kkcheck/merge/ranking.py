@@ -27,7 +27,7 @@ from .overlap import (
     estimate_scale_offset,
 )
 
-__all__ = ["RankMode", "ReferenceTrial", "rank_references", "off_source"]
+__all__ = ["RankMode", "ReferenceTrial", "rank_references", "off_source", "ranking_note"]
 
 #: Hypotheses of :func:`rank_references`: correct one suspect source at a time, or trust one
 #: source at a time and correct all others to it.
@@ -202,3 +202,42 @@ def off_source(trials: Sequence[ReferenceTrial], *, margin: float = 1.5) -> str 
     if sus[1].score >= margin * b and base[0].score >= margin * b:
         return sus[0].source
     return None
+
+
+def ranking_note(trials: Sequence[ReferenceTrial], *, margin: float = 1.5) -> str | None:
+    """One sentence on what the ranking can say when it names no source, else None.
+
+    Parameters
+    ----------
+    trials : sequence of ReferenceTrial
+        The output of :func:`rank_references`.
+    margin : float
+        As in :func:`off_source`.
+
+    Returns
+    -------
+    str or None
+        None when :func:`off_source` names a source or there are no suspect trials; else
+        "cannot tell which" (a correction helps but the best suspect trials score within
+        ``margin`` of each other) or "finds no source off" (no correction scores ``margin``
+        times better than the uncorrected merge).
+    """
+    if not trials or off_source(trials, margin=margin) is not None:
+        return None
+    sus = sorted((t for t in trials if t.hypothesis == "suspect"), key=lambda t: t.score)
+    base = [t for t in trials if t.hypothesis == "uncorrected"]
+    if not sus or not base or not np.isfinite(sus[0].score):
+        return None
+    b = sus[0].score
+    if base[0].score >= margin * b:
+        if len(sus) < 2:
+            return None
+        return (
+            "KK consistency cannot tell which source is off: correcting "
+            f"{sus[0].source!r} or {sus[1].source!r} gives scores within a factor "
+            f"{sus[1].score / b:.3g} of each other (less than {margin:g}), so no source is named."
+        )
+    return (
+        "KK consistency finds no source off: no single correction makes the merge more than "
+        f"{margin:g} times more consistent than the data as measured, so no source is named."
+    )
