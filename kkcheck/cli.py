@@ -58,6 +58,12 @@ def _add_input_options(p: argparse.ArgumentParser) -> None:
         help="report scale/offset between sources but do not apply them",
     )
     g.add_argument(
+        "--force-correction",
+        action="store_true",
+        help="apply every usable scale/offset, even one larger than 10 %% or one the overlap "
+        "does not determine (each is a warning)",
+    )
+    g.add_argument(
         "--overlap",
         choices=("side_by_side", "blend"),
         default="side_by_side",
@@ -205,6 +211,8 @@ def _options_from_args(args) -> dict:
     opts = {k: getattr(args, k) for k in keys if getattr(args, k, None) is not None}
     if getattr(args, "no_correction", False):
         opts["correct"] = False
+    if getattr(args, "force_correction", False):
+        opts["correct"] = "force"
     if "anchor" in opts:
         opts["anchors_ev"] = tuple(opts.pop("anchor"))
     return opts

@@ -13,7 +13,8 @@ Config file (TOML) keys, all optional except ``inputs``::
 
     [merge]
     reference = "uv"                   # source name; default: the rule of kkcheck.merge
-    correct = true                     # apply the estimated scale/offset
+    correct = true                     # apply a scale/offset the data determine; "force"
+    max_correction = 0.10              # larger corrections need correct = "force"
     overlap = "blend"                  # or "side_by_side"
     rank_sources = true                # use KK consistency to say which source is off
 
@@ -79,8 +80,13 @@ class JobOptions:
         Reading defaults for inputs without a usable header (see :func:`kkcheck.io.read_table`).
     reference : str or None
         Name of the source the others are scaled to (default: the merge's rule).
-    correct : bool
-        Apply the estimated scale/offset of each source (they are reported either way).
+    correct : bool or "force"
+        True: apply a source's estimated scale/offset when the data determine it (the rule
+        of :mod:`kkcheck.merge.decision`); False: never; ``"force"``: whenever the scale is
+        usable, even above ``max_correction`` (always a warning). Reported either way.
+    max_correction : float
+        Largest relative change a correction may make without ``correct = "force"``
+        (default 0.10 = 10 %, :data:`kkcheck.merge.MAX_CORRECTION`).
     overlap : str
         ``"blend"`` or ``"side_by_side"`` (see :func:`kkcheck.merge.merge`).
     rank_sources : bool
@@ -122,7 +128,8 @@ class JobOptions:
     quantity: str | None = None
     convention: ConventionChoice = "auto"
     reference: str | None = None
-    correct: bool = True
+    correct: bool | str = True
+    max_correction: float = 0.10
     overlap: OverlapChoice = "side_by_side"
     rank_sources: bool = True
     flagged: FlaggedChoice = "replace"
@@ -144,6 +151,10 @@ class JobOptions:
         check_choice("flagged", self.flagged, FlaggedChoice)
         check_choice("steps", self.steps, StepsChoice)
         check_choice("frequency_unit", self.frequency_unit, FrequencyUnitChoice)
+        if self.correct not in (True, False, "force"):
+            raise InputError(f'correct must be true, false or "force", got {self.correct!r}')
+        if not self.max_correction > 0:
+            raise InputError(f"max_correction must be > 0, got {self.max_correction!r}")
 
     @property
     def flag_policy(self) -> FlagPolicy:
@@ -200,6 +211,7 @@ CONFIG_SECTIONS = {
     "merge": {
         "reference": "reference",
         "correct": "correct",
+        "max_correction": "max_correction",
         "overlap": "overlap",
         "rank_sources": "rank_sources",
     },

@@ -130,16 +130,25 @@ def _check_size(datasets: Sequence[Dataset]) -> None:
 
 
 def _merge_stage(datasets, options: JobOptions, say):
-    from .merge import merge, rank_references
+    from .merge import merge, rank_references, ranking_note
 
     say("merging sources")
+    score = _kk_score(options) if len(datasets) > 1 else None
     merged = merge(
-        datasets, reference=options.reference, correct=options.correct, overlap=options.overlap
+        datasets,
+        reference=options.reference,
+        correct=options.correct,
+        overlap=options.overlap,
+        max_correction=options.max_correction,
+        kk_score=score,
     )
     ranking = None
     if options.rank_sources and len(datasets) > 1 and options.correct:
         say("ranking sources by KK consistency")
-        ranking = rank_references(datasets, _kk_score(options), overlap=options.overlap)
+        ranking = rank_references(datasets, score, overlap=options.overlap)
+        note = ranking_note(ranking)
+        if note is not None and note.startswith("KK consistency cannot tell"):
+            warnings.warn(note, RuntimeWarning, stacklevel=2)
     return merged, ranking
 
 
