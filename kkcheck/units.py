@@ -10,6 +10,10 @@ Constants (CODATA 2018, exact SI definitions of h, c, e):
 * ``EV_PER_INV_CM`` = 1.239841984e-4 eV per cm^-1 (E = hc * wavenumber)
 * ``EV_PER_THZ`` = h = 4.135667696e-3 eV per THz (E = h nu)
 * ``HBAR_EV_S`` = hbar = 6.582119569e-16 eV s (E = hbar omega, omega in rad/s)
+* ``EV_PER_HZ`` = h = 4.135667696e-15 eV per Hz (E = h nu)
+
+Further axis units: Angstrom (1 A = 0.1 nm exactly, E = 12398.41984 / lambda[A]) and meV
+(1 meV = 1e-3 eV).
 
 References
 ----------
@@ -28,7 +32,9 @@ __all__ = [
     "EV_PER_INV_CM",
     "EV_PER_THZ",
     "HBAR_EV_S",
+    "EV_PER_HZ",
     "AXIS_UNITS",
+    "TYPICAL_ENERGY_EV",
     "to_energy_ev",
     "from_energy_ev",
     "nk_to_eps",
@@ -42,6 +48,7 @@ HC_EV_NM = 1239.841984
 EV_PER_INV_CM = 1.239841984e-4
 EV_PER_THZ = 4.135667696e-3
 HBAR_EV_S = 6.582119569e-16
+EV_PER_HZ = 4.135667696e-15
 
 #: Axis kinds kkcheck understands, with their canonical spelling (used in headers and JSON).
 AXIS_UNITS = (
@@ -51,7 +58,28 @@ AXIS_UNITS = (
     "wavenumber_cm-1",
     "frequency_thz",
     "angular_frequency_rad_s",
+    "wavelength_angstrom",
+    "energy_mev",
+    "frequency_hz",
 )
+
+#: Photon-energy range [eV] (low, high) where tables written in each axis unit usually lie:
+#: wavelengths in nm or um, wavenumbers and THz cover the far infrared to the vacuum
+#: ultraviolet (1e-4 eV is 12 mm, 100 eV is 12 nm); eV and Angstrom tables reach X-rays;
+#: meV tables are infrared; Hz and rad/s axes reach down to dielectric spectroscopy. A table
+#: whose energies lie mostly outside its unit's range was probably written in another unit
+#: (nm over micrometre values, eV over meV values). Common practice, no source.
+TYPICAL_ENERGY_EV = {
+    "energy_ev": (1e-4, 1e6),
+    "wavelength_nm": (1e-4, 100.0),
+    "wavelength_um": (1e-4, 100.0),
+    "wavenumber_cm-1": (1e-4, 100.0),
+    "frequency_thz": (1e-5, 100.0),
+    "angular_frequency_rad_s": (1e-20, 100.0),
+    "wavelength_angstrom": (1e-3, 1e6),
+    "energy_mev": (1e-5, 10.0),
+    "frequency_hz": (1e-20, 100.0),
+}
 
 
 def to_energy_ev(values, axis: str) -> np.ndarray:
@@ -83,6 +111,12 @@ def to_energy_ev(values, axis: str) -> np.ndarray:
         return x * EV_PER_THZ
     if axis == "angular_frequency_rad_s":
         return x * HBAR_EV_S
+    if axis == "wavelength_angstrom":
+        return HC_EV_NM / (0.1 * x)
+    if axis == "energy_mev":
+        return 1e-3 * x
+    if axis == "frequency_hz":
+        return x * EV_PER_HZ
     raise ValueError(f"unknown axis unit {axis!r}; expected one of {', '.join(AXIS_UNITS)}")
 
 
@@ -101,6 +135,12 @@ def from_energy_ev(energy_ev, axis: str) -> np.ndarray:
         return e / EV_PER_THZ
     if axis == "angular_frequency_rad_s":
         return e / HBAR_EV_S
+    if axis == "wavelength_angstrom":
+        return HC_EV_NM / e / 0.1
+    if axis == "energy_mev":
+        return 1e3 * e
+    if axis == "frequency_hz":
+        return e / EV_PER_HZ
     raise ValueError(f"unknown axis unit {axis!r}; expected one of {', '.join(AXIS_UNITS)}")
 
 

@@ -4,8 +4,11 @@
   ``,`` that occurs the same number of times on every data line; failing that, the one
   that occurs on more than half of the data lines; failing that, runs of whitespace. Empty
   cells at the end of a row (a trailing delimiter) are dropped.
-* **Numbers** use a decimal *point* only (``1.5``, ``-2e-3``, ``1.5D+00``). A decimal comma
-  (``1,5``) is an error that says so. ``nan`` and ``inf`` are errors in axis and value
+* **Numbers** use a decimal point (``1.5``, ``-2e-3``, ``1.5D+00``), or a decimal comma
+  (``1,5``) throughout a table separated by ``;``, tabs or whitespace (:func:`decimal_mark`).
+  A decimal comma in a ','-separated table is an error that says so, and a ','-separated
+  table without a header that could be read either way is refused
+  (:func:`refuse_ambiguous_commas`). ``nan`` and ``inf`` are errors in axis and value
   columns; in uncertainty columns an empty cell or ``nan`` means "not known".
 * **Rows** must have as many cells as the header (or the first row); the first fault in file
   order is reported with its line and column.
@@ -36,6 +39,9 @@ __all__ = [
     "number",
     "parse_rows",
     "printed_quantum",
+    "decimal_mark",
+    "with_decimal_points",
+    "refuse_ambiguous_commas",
 ]
 
 _NUMBER = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eEdD][+-]?\d+)?", re.ASCII)
@@ -198,14 +204,22 @@ def parse_rows(
     if lay.nk_check_cols:
         wanted += list(lay.nk_check_cols)
     sig = list(lay.sigma_cols) if lay.sigma_cols else []
-    fast = _parse_fast(rows, lay, wanted, sig)
+    wanted = [c for c in wanted if c >= 0]  # -1: a column the table does not have (k = 0)
+    sig_read = [c for c in sig if c >= 0]
+    fast = _parse_fast(rows, lay, wanted, sig_read)
     if fast is not None:
         cols = fast
     else:
-        cols = _parse_slow(rows, lay, wanted, sig, delim, shown, header_line)
+        cols = _parse_slow(rows, lay, wanted, sig_read, delim, shown, header_line)
+    cols[-1] = np.zeros(len(rows))
 
     def arr(c):
         return cols[c]
+
+    def quantum(c):
+        if c < 0:
+            return np.zeros(len(rows))
+        return printed_quantum([r[1][c] for r in rows])
 
     return Parsed(
         lines=np.array([r[0] for r in rows], dtype=int),
@@ -218,8 +232,8 @@ def parse_rows(
         else None,
         s1=arr(sig[0]) if sig else None,
         s2=arr(sig[1]) if sig else None,
-        q1=printed_quantum([r[1][lay.value_cols[0]] for r in rows]),
-        q2=printed_quantum([r[1][lay.value_cols[1]] for r in rows]),
+        q1=quantum(lay.value_cols[0]),
+        q2=quantum(lay.value_cols[1]),
     )
 
 
@@ -289,7 +303,7 @@ def _parse_slow(rows, lay: Layout, wanted, sig, delim, shown, header_line):
         if len(row) != lay.ncols:
             raise InputError(
                 f"expected {lay.ncols} {delim_name(delim)}-separated cells{where}, "
-                f"found {len(row)}",
+                f"found {len(row)}{_comma_hint(row, delim)}",
                 shown,
                 lineno,
             )
@@ -298,3 +312,81 @@ def _parse_slow(rows, lay: Layout, wanted, sig, delim, shown, header_line):
         for c in sig:
             cols[c].append(number(row[c], shown, lineno, c + 1, lay.names[c], sigma=True))
     return {c: np.asarray(v, dtype=float) for c, v in cols.items()}
+
+
+# ------------------------------------------------------------------------------------------
+# decimal commas
+# ------------------------------------------------------------------------------------------
+#: A cell without a decimal point: an integer part or the digits after a decimal comma.
+_WHOLE = re.compile(r"[+-]?\d+(?:[eE][+-]?\d+)?", re.ASCII)
+
+
+def _comma_hint(row: list[str], delim: str) -> str:
+    """A hint for a row of a ','-separated table that may hold decimal commas."""
+    if delim != "," or not row or any("." in c for c in row):
+        return ""
+    return "; if the numbers use decimal commas, separate the columns with ';' or tabs"
+
+
+def decimal_mark(rows, used: list[int], delim: str, shown: str) -> str:
+    """The decimal mark of the used cells: ``"."``, or ``","`` (not with a ',' delimiter).
+
+    A table separated by ``;``, tabs or whitespace whose numbers carry commas and no decimal
+    points (``1,5``) uses decimal commas; one with both marks is an error naming the first line
+    of each.
+    """
+    if delim == ",":
+        return "."
+    first_comma = first_point = None
+    for ln, row in rows:
+        for c in used:
+            tok = row[c] if c < len(row) else ""
+            if first_comma is None and _DECIMAL_COMMA.fullmatch(tok):
+                first_comma = ln
+            elif first_point is None and "." in tok:
+                first_point = ln
+        if first_comma is not None and first_point is not None:
+            raise InputError(
+                f"decimal commas (line {first_comma}) and decimal points (line {first_point}) "
+                "in one table; expected one decimal mark throughout",
+                shown,
+                max(first_comma, first_point),
+            )
+    return "," if first_comma is not None else "."
+
+
+def with_decimal_points(rows, used: list[int]):
+    """Rows with the decimal commas of the used cells written as points."""
+    out = []
+    for ln, row in rows:
+        row = list(row)
+        for c in used:
+            if c < len(row):
+                row[c] = row[c].replace(",", ".")
+        out.append((ln, row))
+    return out
+
+
+def refuse_ambiguous_commas(rows, ncols: int, valid_counts: tuple[int, ...], shown: str):
+    """Refuse a ','-separated table without a header that reads two ways.
+
+    When no cell has a decimal point and the first row's cells could pair up as decimal-comma
+    numbers (an integer part followed by a digits-only part) into another valid column count,
+    ``400,1,7,0,1`` is either axis, n, k, sigma_n, sigma_k or axis 400, n 1.7, k 0.1.
+    """
+    if not rows or any("." in c for _, row in rows for c in row):
+        return
+    ln, first = rows[0]
+    if not all(_WHOLE.fullmatch(c) for c in first):
+        return
+    # joining j pairs (integer part, tail) of the ncols cells gives ncols - j numbers
+    alternatives = [ncols - j for j in range(1, ncols // 2 + 1) if ncols - j in valid_counts]
+    if ncols in valid_counts and alternatives:
+        raise InputError(
+            f"ambiguous ','-separated table: no cell has a decimal point, so the {ncols} cells "
+            f"of a row may also be {alternatives[0]} numbers written with decimal commas; "
+            "write decimal points (400.0), separate the columns with ';' or tabs, or add a "
+            "header row",
+            shown,
+            ln,
+        )

@@ -5,17 +5,20 @@ One place to add a spelling. Three tables do the work:
 * :data:`AXIS_WORDS` -- words that name an axis quantity (``wavelength``, ``lambda``,
   ``energy``, ``photon energy``, ``wavenumber``, ``nu``, ``frequency``, ...), each with the
   axis kinds it may stand for;
-* :data:`AXIS_UNIT_TOKENS` -- unit tokens (``nm``, ``um``/``µm``, ``eV``,
-  ``cm-1``/``cm^-1``/``1/cm``, ``THz``, ``rad/s``) mapped to a canonical axis unit of
+* :data:`AXIS_UNIT_TOKENS` -- unit tokens (``nm``, ``um``/``µm``, ``Å``/``angstrom``,
+  ``eV``, ``meV``, ``cm-1``/``cm^-1``/``1/cm``, ``THz``, ``Hz``, ``rad/s``) mapped to a
+  canonical axis unit of
   :data:`kkcheck.units.AXIS_UNITS`;
 * :data:`COLUMN_MAP` -- value, uncertainty and ignored columns (``n``, ``k``, ``eps1``, ``e1``,
   ``epsilon1``, ``eps_r``, ``sigma_n``, ``dn``, ``n_err``, ``de1``, ``source``, ``row``, ...).
 
 An axis column must name its unit as a separate token: in brackets (``Wavelength (nm)``,
 ``Energy [eV]``), after a slash (``lambda/nm``), or after an underscore or a space
-(``wavelength_nm``, ``E_eV``, ``wavenumber_cm-1``, ``energy eV``); a bare unit (``nm``, ``eV``)
+(``wavelength_nm``, ``E_eV``, ``wavenumber_cm-1``, ``energy eV``) or a comma
+(``"Wavelength, nm"``, a quoted header cell); a bare unit (``nm``, ``eV``)
 also names the axis. Units are never searched for inside words, so ``wavenumber`` (which
-contains ``um``) is a word without a unit.
+contains ``um``) is a word without a unit. A lone ``A`` is not read as Angstrom (it is also
+the symbol of the ampere); ``MeV`` (mega) is refused rather than taken for ``meV``.
 
 Names are compared after :func:`normalize_name`: lower case, Greek letters spelled out
 (``ε`` -> ``eps``, ``σ`` -> ``sigma``, ``Δ`` -> ``d``, ``λ`` -> ``lambda``, ``ν`` -> ``nu``,
@@ -42,10 +45,10 @@ __all__ = [
 ]
 
 # --- axis words: normalized word -> axis kinds it may name ----------------------------------
-_LENGTH = ("wavelength_nm", "wavelength_um")
-_ENERGY = ("energy_ev",)
+_LENGTH = ("wavelength_nm", "wavelength_um", "wavelength_angstrom")
+_ENERGY = ("energy_ev", "energy_mev")
 _WAVENUMBER = ("wavenumber_cm-1",)
-_FREQUENCY = ("frequency_thz",)
+_FREQUENCY = ("frequency_thz", "frequency_hz")
 _ANGULAR = ("angular_frequency_rad_s",)
 
 #: Axis words (after :func:`normalize_name`) and the canonical axis units each may carry.
@@ -78,6 +81,12 @@ AXIS_UNIT_TOKENS: dict[str, str] = {
     "ev": "energy_ev",
     **dict.fromkeys(("cm-1", "1/cm", "/cm", "invcm", "kayser"), "wavenumber_cm-1"),
     "thz": "frequency_thz",
+    "hz": "frequency_hz",
+    "mev": "energy_mev",
+    **dict.fromkeys(
+        ("å", "angstrom", "angstroms", "angstroem", "ångström", "ångstrom", "aa", "ang"),
+        "wavelength_angstrom",
+    ),
     **dict.fromkeys(("rad/s", "rads-1", "rad/sec"), "angular_frequency_rad_s"),
 }
 
@@ -153,12 +162,13 @@ def _build_column_map() -> dict[str, str]:
 COLUMN_MAP: dict[str, str] = _build_column_map()
 
 #: Bracketed unit of a value column that says "dimensionless" and may be dropped.
-_DIMENSIONLESS = {"", "-", "1", "au", "a.u.", "unitless", "dimensionless", "none"}
+DIMENSIONLESS = {"", "-", "1", "au", "a.u.", "unitless", "dimensionless", "none"}
 
 #: Short list of what is accepted, for error messages.
 ACCEPTED_SUMMARY = (
     "expected an axis column naming its unit (e.g. wavelength_nm, Wavelength (um), energy (eV), "
-    "wavenumber (cm-1), frequency (THz)), value columns n,k or eps1,eps2 (e1,e2), optional "
+    "wavenumber (cm-1), frequency (THz), also Å, meV, Hz), value columns n,k or eps1,eps2 "
+    "(e1,e2), optional "
     "uncertainty columns (sigma_n, dk, eps1_err, ...) and source/row/flags"
 )
 
@@ -192,7 +202,10 @@ def normalize_unit(text: str) -> str:
 
     ``µm`` and ``μm`` become ``um``; ``cm^-1``, ``cm⁻¹`` and ``cm**-1`` become ``cm-1``.
     """
-    t = text.strip().strip("\"'`").lower()
+    t = text.strip().strip("\"'`")
+    if t.replace(" ", "") == "MeV":
+        return "MeV (mega)"  # not meV: never lower-cased into a known token
+    t = t.lower()
     for a, b in (("µ", "u"), ("μ", "u"), ("⁻¹", "-1"), ("⁻", "-"), ("¹", "1"), ("−", "-")):
         t = t.replace(a, b)
     t = re.sub(r"[\s^*()]", "", t)
@@ -226,7 +239,7 @@ class ColumnName:
 
 def _axis(word: str, unit: str, text: str) -> ColumnName | None:
     """Resolve an (axis word, unit token) pair; None when ``word`` is not an axis word."""
-    w = normalize_name(word)
+    w = normalize_name(word.rstrip().rstrip(","))
     if w not in AXIS_WORDS:
         return None
     canon = AXIS_UNIT_TOKENS.get(normalize_unit(unit))
@@ -265,22 +278,22 @@ def parse_column_name(text: str) -> ColumnName:
         got = _axis(word, unit, text)
         if got is not None:
             return got
-        if normalize_unit(unit).strip(".") in {u.strip(".") for u in _DIMENSIONLESS}:
+        if normalize_unit(unit).strip(".") in {u.strip(".") for u in DIMENSIONLESS}:
             inner = COLUMN_MAP.get(normalize_name(word))
             if inner is not None:
                 return ColumnName(inner, None, text)
         return ColumnName("unknown", None, text)
     # word, then a separator (slash, underscore, space), then the unit: try each split point
-    for sep in ("/", "_", " "):
+    for sep in ("/", "_", ",", " "):
         pos = raw.rfind(sep)
         while pos > 0:
             got = _axis(raw[:pos], raw[pos + 1 :], text)
             if got is not None and got.kind == "axis":
                 return got
             pos = raw.rfind(sep, 0, pos)
-    for sep in ("/", "_", " "):
+    for sep in ("/", "_", ",", " "):
         pos = raw.rfind(sep)
-        if pos > 0 and normalize_name(raw[:pos]) in AXIS_WORDS:
+        if pos > 0 and normalize_name(raw[:pos].rstrip(",")) in AXIS_WORDS:
             return ColumnName("axis_bad_unit", None, text, raw[pos + 1 :])
     return ColumnName("unknown", None, text)
 

@@ -9,19 +9,32 @@
   whole-line comment before the data (``# wavelength_nm, n, k``); it is used only when every
   cell is recognised and the count matches, and a note says so.
 * **No header.** The file then needs ``axis=`` and ``quantity=``; its columns are axis, two
-  values and optionally two uncertainties.
+  values and optionally two uncertainties (axis and n, or axis, n and sigma_n, with
+  ``quantity="n"``).
+* **Lines above the header** (metadata such as ``Sample: ...``, a units row under the names):
+  see :mod:`kkcheck.io.headerblock`.
+* **Unknown columns** (``Psi (deg)``, ``Delta (deg)``, a depolarisation column) are left
+  unused, with a note naming them, when the known columns make a complete table (an axis and
+  a value pair); otherwise the first unknown name is an error.
+* **Column selection.** ``columns=`` maps roles to columns (:mod:`kkcheck.io.select`); the
+  header then only names the columns.
+* **n only.** ``quantity="n"`` (or a ``columns=`` mapping with n and no k) reads a table of n
+  alone with k = 0, and a note says so.
 
 The header spellings themselves live in one table, :mod:`kkcheck.io.headers`.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import itertools
 from dataclasses import dataclass
 
 from ..errors import InputError
+from . import headerblock as _hb
 from . import headers as _h
 from .cells import cells, number_like, sniff, trim
+from .select import resolve_columns
 from .text import Lines
 
 __all__ = [
@@ -68,6 +81,12 @@ class Layout:
         The two uncertainty columns.
     names : tuple of str
         Column names as shown in messages.
+    ignored : tuple of int
+        Columns left unused (unknown names, or not selected by ``columns=``).
+    k_implied : bool
+        The table has n only; k = 0 is implied (``value_cols[1]`` is -1).
+    selected : bool
+        The roles came from a ``columns=`` mapping.
     """
 
     ncols: int
@@ -80,6 +99,9 @@ class Layout:
     sigma_kind: str | None
     sigma_cols: tuple[int, int] | None
     names: tuple[str, ...]
+    ignored: tuple[int, ...] = ()
+    k_implied: bool = False
+    selected: bool = False
 
 
 @dataclass(frozen=True)
@@ -107,10 +129,17 @@ class TableLayout:
 
 
 def table_layout(
-    lines: Lines, axis_opt: str | None, quantity_opt: str | None, shown: str
+    lines: Lines,
+    axis_opt: str | None,
+    quantity_opt: str | None,
+    shown: str,
+    columns=None,
 ) -> TableLayout:
     """Find the delimiter, the header (a row, a comment or none) and the layout of a table."""
     bodies = [b for _, b in lines.content]
+    start = _hb.first_numeric(bodies)
+    if start is not None and start >= 2:
+        return _layout_after_block(lines, start, axis_opt, quantity_opt, shown, columns)
     delim = sniff(bodies[1:] if len(bodies) > 1 else bodies)
     first_line, first_body = lines.content[0]
     first_cells = trim(cells(first_body, delim, shown, first_line))
@@ -124,22 +153,78 @@ def table_layout(
             )
         ncols = len(trim(cells(data[0][1], delim, shown, data[0][0])))
         names = header_names(first_body, delim, ncols, shown, first_line)
-        _too_few_columns(len(names), shown, first_line)
-        lay = layout_from_header(names, axis_opt, quantity_opt, shown, first_line)
-        return TableLayout(lay, data, delim, first_line, ())
+        lay = _named_layout(names, axis_opt, quantity_opt, shown, first_line, columns)
+        return TableLayout(lay, data, delim, first_line, layout_notes(lay))
     data = lines.content
     ncols = len(first_cells)
-    _too_few_columns(ncols, shown, first_line)
+    if columns is not None:
+        lay = layout_from_columns(None, ncols, columns, axis_opt, quantity_opt, shown, first_line)
+        return TableLayout(lay, data, delim, None, layout_notes(lay))
+    _too_few_columns(ncols, shown, first_line, quantity_opt)
     found = _layout_from_comment(lines, first_line, delim, ncols, axis_opt, quantity_opt)
     if found is not None:
         lay, header_line = found
         note = f"header: taken from the comment at line {header_line}"
-        return TableLayout(lay, data, delim, header_line, (note,))
+        return TableLayout(lay, data, delim, header_line, (note, *layout_notes(lay)))
     lay = layout_without_header(ncols, axis_opt, quantity_opt, shown, first_line)
-    return TableLayout(lay, data, delim, None, ())
+    return TableLayout(lay, data, delim, None, layout_notes(lay))
 
 
-def _too_few_columns(ncols: int, shown: str, lineno: int) -> None:
+def _named_layout(names, axis_opt, quantity_opt, shown, lineno, columns) -> Layout:
+    """Layout from header ``names``: by the ``columns=`` mapping when given."""
+    if columns is not None:
+        return layout_from_columns(
+            names, len(names), columns, axis_opt, quantity_opt, shown, lineno
+        )
+    _too_few_columns(len(names), shown, lineno, quantity_opt)
+    return layout_from_header(names, axis_opt, quantity_opt, shown, lineno)
+
+
+def _layout_after_block(lines: Lines, start, axis_opt, quantity_opt, shown, columns):
+    """Layout when several non-numeric lines (metadata, header, units row) precede the data."""
+    content = lines.content
+    data = content[start:]
+    delim = sniff([b for _, b in data])
+    ncols = len(trim(cells(data[0][1], delim, shown, data[0][0])))
+    head = start - 1
+    notes: list[str] = []
+    units_cells = trim(cells(content[head][1], delim, shown, content[head][0]))
+    units = None
+    if _hb.is_units_row(units_cells):
+        units, head = (content[head][0], units_cells), head - 1
+    header_line, header_body = content[head]
+    names = header_names(header_body, delim, ncols, shown, header_line)
+    if units is not None:
+        names = _hb.with_units(names, units[1])
+        notes.append(f"header: units taken from the row under the header (line {units[0]})")
+    notes = _hb.metadata_notes(content[:head]) + notes
+    lay = _named_layout(names, axis_opt, quantity_opt, shown, header_line, columns)
+    return TableLayout(lay, data, delim, header_line, (*notes, *layout_notes(lay)))
+
+
+def layout_notes(lay: Layout) -> tuple[str, ...]:
+    """Provenance notes for unused columns, a column selection and an implied k = 0."""
+    notes = []
+    if lay.selected:
+        used = [("axis", lay.axis_col)]
+        used += list(zip(("eps1", "eps2") if lay.quantity == "eps" else ("n", "k"), lay.value_cols))
+        text = ", ".join(f"{r} = column {c + 1}" for r, c in used if c >= 0)
+        notes.append(f"columns: chosen by the columns option ({text})")
+    if lay.ignored:
+        shown = ", ".join(f"{c + 1} ({lay.names[c]!r})" for c in lay.ignored[:8])
+        more = f" and {len(lay.ignored) - 8} more" if len(lay.ignored) > 8 else ""
+        notes.append(f"columns: not used: {shown}{more}")
+    if lay.k_implied:
+        notes.append(
+            "k: the table gives n only; k = 0 was assumed (no absorption), so eps2 = 0 and "
+            "the KK test compares n with a transparent medium"
+        )
+    return tuple(notes)
+
+
+def _too_few_columns(ncols: int, shown: str, lineno: int, quantity_opt=None) -> None:
+    if ncols == 2 and quantity_opt == "n":
+        return
     if ncols == 1:
         raise InputError(
             "only one column; expected an axis column and two value columns (n,k or eps1,eps2)",
@@ -148,7 +233,8 @@ def _too_few_columns(ncols: int, shown: str, lineno: int) -> None:
         )
     if ncols == 2:
         raise InputError(
-            "only two columns; expected an axis column and two value columns (n,k or eps1,eps2)",
+            "only two columns; expected an axis column and two value columns (n,k or eps1,eps2), "
+            "or give --quantity n for a table of n only (k = 0)",
             shown,
             lineno,
         )
@@ -209,6 +295,8 @@ def layout_without_header(
         raise InputError(
             f"the first row is numeric, so the table has no header; {_AUTO_HINT}", shown, lineno
         )
+    if quantity_opt == "n":
+        return _n_only_without_header(ncols, axis_opt, shown, lineno)
     if ncols not in (3, 5):
         raise InputError(
             f"a table without a header needs 3 columns (axis, two values) or 5 (plus two "
@@ -232,18 +320,63 @@ def layout_without_header(
     )
 
 
+def _n_only_without_header(ncols: int, axis_opt: str, shown: str, lineno: int) -> Layout:
+    """Headerless n-only table: axis and n, optionally sigma_n (k = 0)."""
+    if ncols not in (2, 3):
+        raise InputError(
+            f"a table of n only without a header needs 2 columns (axis, n) or 3 (plus "
+            f"sigma_n), found {ncols}",
+            shown,
+            lineno,
+        )
+    sig = ncols == 3
+    names = (axis_opt, "n") + (("sigma_n",) if sig else ())
+    return Layout(
+        ncols,
+        0,
+        axis_opt,
+        (),
+        "nk",
+        (1, -1),
+        None,
+        "nk" if sig else None,
+        (2, -1) if sig else None,
+        names,
+        k_implied=True,
+    )
+
+
 # ------------------------------------------------------------------------------------------
 # header names -> layout, one question at a time (errors in this order)
 # ------------------------------------------------------------------------------------------
 def layout_from_header(
     names: list[str], axis_opt: str | None, quantity_opt: str | None, shown: str, lineno: int
 ) -> Layout:
-    """Layout of a table whose header (at line ``lineno``) has the column ``names``."""
+    """Layout of a table whose header (at line ``lineno``) has the column ``names``.
+
+    Columns with unknown names are left unused (``Layout.ignored``) when the known ones make
+    a complete table; otherwise the first unknown name is the error.
+    """
     parsed = [_h.parse_column_name(n) for n in names]
+    unknown = tuple(i for i, p in enumerate(parsed) if p.kind == "unknown")
+    if unknown:
+        known = [
+            p if p.kind != "unknown" else _h.ColumnName("ignore", None, p.text) for p in parsed
+        ]
+        try:
+            lay = _layout_of(known, names, axis_opt, quantity_opt, shown, lineno)
+        except InputError:
+            _named_columns(parsed, shown, lineno)  # raises for the first unknown name
+            raise
+        return dataclasses.replace(lay, ignored=unknown)
+    return _layout_of(parsed, names, axis_opt, quantity_opt, shown, lineno)
+
+
+def _layout_of(parsed, names, axis_opt, quantity_opt, shown, lineno) -> Layout:
     seen = _named_columns(parsed, shown, lineno)
     axis_col, axis, extra = _axis_columns(parsed, axis_opt, shown, lineno)
     quantity, values, nk_check = _value_columns(seen, quantity_opt, shown, lineno)
-    sigma_kind, sigma_cols = _sigma_columns(seen, shown, lineno)
+    sigma_kind, sigma_cols = _sigma_columns(seen, shown, lineno, k_implied=values[1] < 0)
     return Layout(
         len(names),
         axis_col,
@@ -255,6 +388,7 @@ def layout_from_header(
         sigma_kind,
         sigma_cols,
         tuple(n.strip() for n in names),
+        k_implied=values[1] < 0,
     )
 
 
@@ -270,7 +404,8 @@ def _named_columns(parsed: list[_h.ColumnName], shown: str, lineno: int) -> dict
         if p.kind == "axis_bad_unit":
             raise InputError(
                 f"axis column {p.text.strip()!r}: unit {p.unit!r} is not understood or does not "
-                "fit the axis; expected nm, um, eV, cm-1 or THz (e.g. 'wavelength (nm)')",
+                "fit the axis; expected nm, um, eV, cm-1 or THz, also Å, meV, Hz, rad/s "
+                "(e.g. 'wavelength (nm)')",
                 shown,
                 lineno,
             )
@@ -339,6 +474,8 @@ def _value_columns(
     """(quantity, value columns, n,k columns to check against eps or None)."""
     has_eps = "eps1" in seen or "eps2" in seen
     has_nk = "n" in seen or "k" in seen
+    if quantity_opt == "n" and "n" in seen and "k" not in seen and not has_eps:
+        return "nk", (seen["n"], -1), None
     for a, b in (("n", "k"), ("eps1", "eps2")):
         if (a in seen) != (b in seen):
             have, miss = (a, b) if a in seen else (b, a)
@@ -364,9 +501,11 @@ def _value_columns(
 
 
 def _sigma_columns(
-    seen: dict[str, int], shown: str, lineno: int
+    seen: dict[str, int], shown: str, lineno: int, *, k_implied: bool = False
 ) -> tuple[str | None, tuple[int, int] | None]:
     """(what the uncertainties refer to, their columns), or (None, None)."""
+    if k_implied and "sigma_n" in seen and "sigma_k" not in seen:
+        return "nk", (seen["sigma_n"], -1)
     sig_nk = ("sigma_n" in seen, "sigma_k" in seen)
     sig_eps = ("sigma_eps1" in seen, "sigma_eps2" in seen)
     for pair, (a, b) in ((sig_nk, ("sigma_n", "sigma_k")), (sig_eps, ("sigma_eps1", "sigma_eps2"))):
@@ -382,3 +521,61 @@ def _sigma_columns(
     if all(sig_nk):
         return "nk", (seen["sigma_n"], seen["sigma_k"])
     return None, None
+
+
+# ------------------------------------------------------------------------------------------
+# a columns= mapping -> layout
+# ------------------------------------------------------------------------------------------
+def layout_from_columns(
+    names: list[str] | None,
+    ncols: int,
+    columns,
+    axis_opt: str | None,
+    quantity_opt: str | None,
+    shown: str,
+    lineno: int,
+) -> Layout:
+    """Layout from a ``columns=`` mapping (:mod:`kkcheck.io.select`); other columns unused."""
+    roles, unit = resolve_columns(columns, names, ncols, shown, lineno)
+    ax = roles.pop("axis")
+    if unit is None and names is not None:
+        got = _h.parse_column_name(names[ax])
+        unit = got.axis if got.kind == "axis" else None
+    if unit is None:
+        unit = axis_opt
+    if unit is None:
+        raise InputError(
+            "columns: the axis column does not say its unit; name the role by its unit "
+            f"(e.g. wavelength_nm) or give --axis ({', '.join(AXIS_CHOICES)})",
+            shown,
+            lineno,
+        )
+    if axis_opt is not None and axis_opt != unit:
+        raise InputError(
+            f"the columns option says the axis is {unit} but --axis {axis_opt} was given; "
+            "expected them to agree",
+            shown,
+            lineno,
+        )
+    q_opt = "n" if ("n" in roles and "k" not in roles) else quantity_opt
+    quantity, values, nk_check = _value_columns(roles, q_opt, shown, lineno)
+    sigma_kind, sigma_cols = _sigma_columns(roles, shown, lineno, k_implied=values[1] < 0)
+    used = {ax, *roles.values()}
+    shown_names = tuple(
+        (names[i].strip() if names is not None else f"column {i + 1}") for i in range(ncols)
+    )
+    return Layout(
+        ncols,
+        ax,
+        unit,
+        (),
+        quantity,
+        values,
+        nk_check,
+        sigma_kind,
+        sigma_cols,
+        shown_names,
+        ignored=tuple(i for i in range(ncols) if i not in used),
+        k_implied=values[1] < 0,
+        selected=True,
+    )

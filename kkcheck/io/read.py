@@ -69,17 +69,33 @@ from ..options import ConventionChoice, choices
 from ..spectrum import Dataset, Provenance
 from ..units import detect_convention
 from . import headers as _h
-from .cells import Parsed, parse_rows, split_all
-from .layout import AXIS_CHOICES, Layout, table_layout
+from .cells import (
+    Parsed,
+    decimal_mark,
+    delim_name,
+    parse_rows,
+    refuse_ambiguous_commas,
+    split_all,
+    with_decimal_points,
+)
+from .layout import AXIS_CHOICES, Layout, TableLayout, table_layout
 from .text import Lines, decode, read_bytes, split_lines
-from .values import MIN_POINTS, check_axis, collapse, order_note, values_to_eps
+from .values import (
+    MIN_POINTS,
+    axis_plausibility,
+    check_axis,
+    check_magnitude,
+    collapse,
+    order_note,
+    values_to_eps,
+)
 
 __all__ = ["read_table", "MIN_POINTS", "CONVENTIONS", "QUANTITIES"]
 
 #: Values accepted by ``convention=`` (:data:`kkcheck.options.ConventionChoice`).
 CONVENTIONS = choices(ConventionChoice)
 #: Values accepted by ``quantity=``.
-QUANTITIES = ("nk", "eps")
+QUANTITIES = ("nk", "eps", "n")
 
 
 def read_table(
@@ -89,6 +105,7 @@ def read_table(
     quantity: str | None = None,
     name: str | None = None,
     convention: ConventionChoice = "auto",
+    columns=None,
 ) -> Dataset:
     """Read one table of optical constants into a :class:`~kkcheck.spectrum.Dataset`.
 
@@ -101,14 +118,18 @@ def read_table(
         ``wavenumber_cm-1``, ``frequency_thz`` (also ``angular_frequency_rad_s`` or a unit
         token such as ``nm``). Needed when the file has no header or its axis column has no
         unit; must agree with the header otherwise.
-    quantity : {"nk", "eps"}, optional
+    quantity : {"nk", "eps", "n"}, optional
         What the two value columns hold. Needed when the file has no header; must agree with
-        the header otherwise.
+        the header otherwise. ``"n"`` reads a table of n only (k = 0, stated in a note).
     name : str, optional
         Label of the source; the file stem by default.
     convention : {"auto", "exp(-iwt)", "exp(+iwt)"}
         Time-dependence convention of the file. ``"auto"`` detects it from the sign of k or
         eps2 (:func:`kkcheck.units.detect_convention`).
+    columns : mapping, optional
+        Which column holds what, by header name or 1-based number, e.g.
+        ``{"axis": "Wavelength (nm)", "n": 2, "k": 3}`` (:mod:`kkcheck.io.select`); the
+        other columns are left unused and named in a note.
 
     Returns
     -------
@@ -142,15 +163,16 @@ def read_table(
     raw = read_bytes(p, shown)
     digest = hashlib.sha256(raw).hexdigest()
     lines, encoding = _text_lines(raw, shown)
-    table = table_layout(lines, axis_opt, quantity_opt, shown)
+    table = table_layout(lines, axis_opt, quantity_opt, shown, columns)
     lay = table.layout
     notes = ([] if encoding == "utf-8" else [f"encoding: read as {encoding}"]) + list(table.notes)
-    rows = list(
-        zip((ln for ln, _ in table.data), split_all(table.data, table.delim, shown), strict=True)
-    )
+    rows, mark_notes = _cells_with_points(table, shown)
+    notes.extend(mark_notes)
     parsed = parse_rows(rows, lay, table.delim, shown, table.header_line)
     energy = check_axis(parsed, lay, shown)
+    notes.extend(axis_plausibility(energy, parsed, lay, shown))
     eps, s1, s2 = values_to_eps(parsed, lay, shown)
+    check_magnitude(eps, energy, parsed.lines, shown)
     eps, used, converted, note = _apply_convention(eps, parsed.v2, lay.quantity, convention)
     notes.extend(note)
     quantum = _sorted_quantum(energy, parsed)
@@ -186,6 +208,22 @@ def _sorted_quantum(energy: np.ndarray, parsed: Parsed) -> np.ndarray | None:
     return np.column_stack([parsed.q1, parsed.q2])[order][start]
 
 
+def _cells_with_points(table: TableLayout, shown: str):
+    """(line, cells) of every data row, decimal commas written as points; notes."""
+    rows = list(
+        zip((ln for ln, _ in table.data), split_all(table.data, table.delim, shown), strict=True)
+    )
+    lay = table.layout
+    if table.delim == "," and table.header_line is None and not lay.selected:
+        valid = (2, 3) if lay.k_implied else (3, 5)
+        refuse_ambiguous_commas(rows, lay.ncols, valid, shown)
+    used = [c for c in range(lay.ncols) if c not in lay.ignored]
+    if decimal_mark(rows, used, table.delim, shown) == ".":
+        return rows, []
+    note = f"decimal mark: comma ({delim_name(table.delim)}-separated table)"
+    return with_decimal_points(rows, used), [note]
+
+
 def _check_options(axis, quantity, convention) -> tuple[str | None, str | None]:
     """Canonical ``axis`` and ``quantity`` options (None when not given); checks ``convention``."""
     ax = None
@@ -197,7 +235,7 @@ def _check_options(axis, quantity, convention) -> tuple[str | None, str | None]:
     if quantity is not None:
         q = str(quantity).strip().lower()
         if q not in QUANTITIES:
-            raise InputError(f"unknown quantity {quantity!r}; expected nk or eps")
+            raise InputError(f"unknown quantity {quantity!r}; expected nk or eps (or n for a table of n only)")
     # the vocabulary of kkcheck.options, with the reader's own (tested) wording
     if convention not in CONVENTIONS:
         raise InputError(f"unknown convention {convention!r}; expected {', '.join(CONVENTIONS)}")

@@ -21,11 +21,20 @@ import warnings
 import numpy as np
 
 from ..errors import InputError
-from ..units import eps_to_nk, nk_to_eps, sigma_nk_to_eps, to_energy_ev
+from ..units import TYPICAL_ENERGY_EV, eps_to_nk, nk_to_eps, sigma_nk_to_eps, to_energy_ev
 from .cells import Parsed
 from .layout import Layout
 
-__all__ = ["MIN_POINTS", "check_axis", "values_to_eps", "order_note", "collapse", "lines_text"]
+__all__ = [
+    "MIN_POINTS",
+    "check_axis",
+    "values_to_eps",
+    "order_note",
+    "collapse",
+    "lines_text",
+    "axis_plausibility",
+    "check_magnitude",
+]
 
 #: Fewest distinct axis values a table must have.
 MIN_POINTS = 3
@@ -36,6 +45,29 @@ _AXIS_WORD = {
     "wavenumber_cm-1": "wavenumber",
     "frequency_thz": "frequency",
     "angular_frequency_rad_s": "angular frequency",
+    "wavelength_angstrom": "wavelength",
+    "energy_mev": "photon energy",
+    "frequency_hz": "frequency",
+}
+#: Photon energies [eV] no optical-constant table can hold: 1e-20 eV is a period of ~5 days,
+#: 1e7 eV is beyond pair production (common practice, no source).
+ABSURD_ENERGY_EV = (1e-20, 1e7)
+#: Largest |eps| accepted above 0.1 eV; below, (100 eV / E)^2, the Drude bound
+#: |eps| <~ (hbar omega_p / E)^2 with hbar omega_p <= 100 eV, well above any metal's ~15 eV
+#: (Drude free-electron model, e.g. Ashcroft & Mermin, Solid State Physics, 1976, ch. 1;
+#: from memory).
+MAX_ABS_EPS = 1e6
+#: Axis units that differ only by a factor (a typo of unit shows as the whole table shifted).
+_SAME_KIND = {
+    "wavelength_nm": ("wavelength_um", "wavelength_angstrom"),
+    "wavelength_um": ("wavelength_nm",),
+    "wavelength_angstrom": ("wavelength_nm",),
+    "energy_ev": ("energy_mev",),
+    "energy_mev": ("energy_ev",),
+    "frequency_thz": ("frequency_hz",),
+    "frequency_hz": ("frequency_thz",),
+    "wavenumber_cm-1": (),
+    "angular_frequency_rad_s": (),
 }
 _NK_EPS_RTOL = 1e-3
 _AXIS_RTOL = 1e-6
@@ -72,6 +104,17 @@ def check_axis(p: Parsed, lay: Layout, shown: str) -> np.ndarray:
         i = _first(bad)
         raise InputError(
             f"{word} {x[i]:g} gives no finite positive photon energy; expected a usable value",
+            shown,
+            int(p.lines[i]),
+        )
+    lo, hi = ABSURD_ENERGY_EV
+    bad = (energy < lo) | (energy > hi)
+    if bad.any():
+        i = _first(bad)
+        raise InputError(
+            f"{word} {x[i]:g} in column {lay.axis_col + 1} gives {energy[i]:.3g} eV, outside "
+            f"any optical measurement ({lo:g} to {hi:g} eV); check the value and the "
+            "column's unit",
             shown,
             int(p.lines[i]),
         )
@@ -261,3 +304,54 @@ def _duplicate_notes(same_groups: list, avg_groups: list) -> list[str]:
             f"(lines {desc}{more})"
         )
     return notes
+
+
+def axis_plausibility(energy: np.ndarray, p: Parsed, lay: Layout, shown: str) -> list[str]:
+    """Notes (and a RuntimeWarning) when most energies lie outside the axis unit's usual range.
+
+    :data:`kkcheck.units.TYPICAL_ENERGY_EV` gives the range per unit. A wavelength column
+    headed nm over values 0.3-1.7 (micrometres) gives 730-4100 eV: read, but the note and the
+    warning say what to check, and name a unit of the same kind that would fit.
+    """
+    lo, hi = TYPICAL_ENERGY_EV[lay.axis]
+    outside = (energy < lo) | (energy > hi)
+    if np.mean(outside) <= 0.5:
+        return []
+    x = p.axis_values
+    fits = []
+    for other in _SAME_KIND.get(lay.axis, ()):
+        e2 = to_energy_ev(x, other)
+        a, b = TYPICAL_ENERGY_EV[other]
+        if np.mean((e2 < a) | (e2 > b)) <= 0.5:
+            fits.append(other)
+    hint = f" (in {fits[0]} they would give {_range_ev(to_energy_ev(x, fits[0]))})" if fits else ""
+    text = (
+        f"plausibility: the axis is read as {lay.axis}, but its values {x.min():g} to "
+        f"{x.max():g} give {_range_ev(energy)}, outside the usual {lo:g} to {hi:g} eV of "
+        f"{lay.axis} tables; check the column's unit{hint}"
+    )
+    # stacklevel 3: this function <- read_table <- its caller
+    warnings.warn(f"{shown}: {text}", RuntimeWarning, stacklevel=3)
+    return [text]
+
+
+def _range_ev(e: np.ndarray) -> str:
+    return f"{float(np.min(e)):.3g} to {float(np.max(e)):.3g} eV"
+
+
+def check_magnitude(eps: np.ndarray, energy: np.ndarray, lines: np.ndarray, shown: str) -> None:
+    """Refuse |eps| beyond any material: :data:`MAX_ABS_EPS`, or (100 eV / E)^2 below 0.1 eV.
+
+    One mistyped exponent (an eps2 of 1e150) would otherwise set the noise scale of its
+    neighbours and let the KK test call anything consistent.
+    """
+    bound = np.maximum(MAX_ABS_EPS, (100.0 / energy) ** 2)
+    bad = np.abs(eps) > bound
+    if bad.any():
+        i = _first(bad)
+        raise InputError(
+            f"|eps| = {abs(eps[i]):.3g} at {energy[i]:.4g} eV is beyond any material (expected "
+            f"|eps| <= {bound[i]:.3g} there); check this row for a typo or a misplaced exponent",
+            shown,
+            int(lines[i]),
+        )
