@@ -42,7 +42,9 @@ def write_outputs(result: JobResult, out_dir, *, command: str = "") -> JobResult
             overwrite_protect=protect,
         )
     )
-    if result.model is not None:
+    # model.json's content (named ``model`` before the result type called it ``model_json``)
+    model_doc = result.model_json if hasattr(result, "model_json") else result.model
+    if model_doc is not None:
         from .rational.io import parameter_table
 
         files.append(write_json(out / "model.json", result.model, overwrite_protect=protect))
@@ -71,8 +73,9 @@ def _write_repaired(result: JobResult, out: Path, prov, protect) -> list[Path]:
 
     lines = prov + ["KK-consistent repair: flagged points replaced, gaps filled"]
     axes = ["energy_ev"]
-    if result.datasets and result.datasets[0].axis != "energy_ev":
-        axes.append(result.datasets[0].axis)
+    axis_out = result.options.axis_out or (result.datasets[0].axis if result.datasets else None)
+    if axis_out not in (None, "energy_ev"):
+        axes.append(axis_out)
     paths = []
     for axis in axes:
         name = "repaired.csv" if axis == "energy_ev" else f"repaired_{axis}.csv"

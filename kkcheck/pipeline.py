@@ -27,7 +27,7 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 
 from .errors import InputError
-from .job import InputSpec, JobOptions, input_specs, job_options, load_config
+from .job import InputSpec, JobOptions, job_options, load_config
 from .noise import MIN_POINTS
 from .outputs import write_outputs
 from .result import JobResult
@@ -252,7 +252,7 @@ def analyse(
         from .rational.io import model_to_dict
 
         model = model_to_dict(fitted, frequency_unit=options.frequency_unit)
-    return dataclasses.replace(result, summary=build_summary(result), model=model)
+    return dataclasses.replace(result, summary=build_summary(result), model_json=model)
 
 
 # ------------------------------------------------------------------------------- entry points
@@ -269,13 +269,13 @@ def run_job(
     """
     bar = _Progress(progress)
     bar("reading")
-    specs = input_specs(inputs, options)
-    datasets = read_inputs(specs)
-    result = analyse(datasets, options, progress=bar)
-    result = dataclasses.replace(result, inputs=specs)
-    if out_dir is not None:
-        bar("writing outputs")
-        result = write_outputs(result, out_dir, command=command)
+    with one_blas_thread():
+        specs, datasets = read_any(inputs, options)
+        result = analyse(datasets, options, progress=bar)
+        result = dataclasses.replace(result, inputs=specs)
+        if out_dir is not None:
+            bar("writing outputs")
+            result = write_outputs(result, out_dir, command=command)
     bar.done()
     return result
 
@@ -309,15 +309,15 @@ def run(config, out_dir=None, *, progress: bool = False) -> JobResult:
 
 
 def demo_inputs() -> list[str]:
-    """Paths of the bundled demo tables (reference_data/demo)."""
-    root = Path(__file__).resolve().parent.parent / "reference_data" / "demo"
+    """Paths of the bundled demo tables (package data in kkcheck/demo_data)."""
+    root = Path(__file__).resolve().parent / "demo_data"
     names = ("uvvis_ellipsometry.csv", "nir_ellipsometry.tsv", "handbook_ir.txt")
     paths = [root / n for n in names]
     missing = [str(p) for p in paths if not p.exists()]
     if missing:
         raise InputError(
-            "demo data not found (run from a source checkout, or regenerate it with "
-            "python reference_data/make_demo.py)",
+            "demo data not found in the installed package (reinstall kkcheck, or regenerate "
+            "it from a checkout with python reference_data/make_demo.py)",
             path=missing[0],
         )
     return [_short_path(p) for p in paths]
@@ -331,9 +331,40 @@ def _short_path(p: Path) -> str:
         return str(p)
 
 
-def demo(out_dir=None, *, progress: bool = False) -> JobResult:
-    """The whole job on the bundled demo data; writes to the checkout's reports/demo by default."""
+def committed_demo_dir() -> Path:
+    """The checkout's reports/demo (the committed example report).
+
+    Raises
+    ------
+    kkcheck.errors.InputError
+        kkcheck is not running from a source checkout (an installed package has no such folder).
+    """
     repo = Path(__file__).resolve().parent.parent
-    out = Path(out_dir) if out_dir is not None else Path(_short_path(repo / "reports" / "demo"))
+    target = repo / "reports" / "demo"
+    if not (repo / "pyproject.toml").is_file() or not target.is_dir():
+        raise InputError(
+            "not a source checkout: there is no committed demo report to refresh; expected "
+            "kkcheck run from a clone of its repository",
+            path=str(target),
+        )
+    return target
+
+
+def demo(out_dir=None, *, progress: bool = False, refresh_committed: bool = False) -> JobResult:
+    """The whole job on the bundled demo data.
+
+    Writes to ``out_dir``, by default ``./kkcheck-demo`` below the working directory. Only
+    ``refresh_committed=True`` writes the checkout's committed example in reports/demo.
+    """
+    if refresh_committed:
+        if out_dir is not None:
+            raise InputError("give either an output folder or refresh_committed, not both")
+        out = Path(_short_path(committed_demo_dir()))
+    else:
+        out = Path(out_dir) if out_dir is not None else Path(DEMO_OUT)
     opts = JobOptions(do_fit=True, html=True, title="ZX-7 film (invented demo data)")
     return run_job(demo_inputs(), out, opts, progress, "kkcheck demo")
+#: Where ``kkcheck demo`` writes unless told otherwise (below the working directory).
+DEMO_OUT = "kkcheck-demo"
+
+

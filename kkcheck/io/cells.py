@@ -64,13 +64,25 @@ def sniff(data_lines: list[str]) -> str:
                 len(c.split()) > 1 for line in data_lines for c in line.split("\t")
             ):
                 continue  # tabs and spaces mixed for alignment: whitespace table
+            if d == "," and _commas_inside_words(data_lines):
+                continue  # "400 1,5 0,25": decimal commas in a whitespace table
             return d
     best, best_n = " ", len(data_lines) / 2
     for d in (";", "\t", ","):
+        if d == "," and _commas_inside_words(data_lines):
+            continue
         n = sum(d in line for line in data_lines)
         if n > best_n:
             best, best_n = d, n
     return best
+
+
+def _commas_inside_words(data_lines: list[str]) -> bool:
+    """Every line with a comma has whitespace inside a ','-cell: commas are decimal marks."""
+    with_comma = [line for line in data_lines if "," in line]
+    return bool(with_comma) and all(
+        any(len(c.split()) > 1 for c in line.split(",")) for line in with_comma
+    )
 
 
 def cells(body: str, delim: str, shown: str, lineno: int) -> list[str]:

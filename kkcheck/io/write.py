@@ -185,7 +185,8 @@ def write_table_csv(
     unreadable = [
         c
         for c in frame.columns
-        if c != "energy_ev" and _h.parse_column_name(str(c)).kind in ("unknown", "axis_bad_unit")
+        if c not in ("energy_ev", axis)
+        and _h.parse_column_name(str(c)).kind in ("unknown", "axis_bad_unit")
     ]
     if unreadable:
         raise ValueError(
@@ -195,7 +196,8 @@ def write_table_csv(
     target = check_not_input(path, overwrite_protect)
 
     cols = [c for c in _ORDER if c in frame.columns]
-    cols += [c for c in frame.columns if c not in cols and c != "energy_ev"]
+    # the axis column is written once, first, from energy_ev (a frame's own copy is dropped)
+    cols += [c for c in frame.columns if c not in cols and c not in ("energy_ev", axis)]
     axis_values = from_energy_ev(frame["energy_ev"].to_numpy(float), axis)
     order = np.argsort(axis_values, kind="stable")
 
@@ -213,7 +215,14 @@ def write_table_csv(
     for line in provenance_lines:
         head += str(line).splitlines() or [""]
     out = ["# " + h.replace("\r", " ") for h in head]
-    out.append(",".join([axis, *map(str, cols)]))
+    out.append(",".join([_AXIS_HEADER.get(axis, axis), *map(str, cols)]))
+#: Significant digits of an axis converted from eV on writing (the conversion's relative
+#: round-off is ~1e-16; 12 digits keep every digit a table of measured data can carry).
+AXIS_DIGITS = 12
+#: Axis header where the canonical name is not a spelling the reader accepts.
+_AXIS_HEADER = {"angular_frequency_rad_s": "angular_frequency_rad/s"}
+
+
     columns = [_column_text(axis_values[order])]
     columns += [_column_text(frame[c].to_numpy()[order]) for c in cols]
     out.extend(map(",".join, zip(*columns, strict=True)))
@@ -300,3 +309,5 @@ def write_text(path, text: str, *, overwrite_protect=()):
     target = check_not_input(path, overwrite_protect)
     _atomic_write(target, text)
     return target
+    if axis != "energy_ev":  # conversion round-off (251.99999999999997 nm) is not data
+        axis_values = np.array([float(f"{v:.{AXIS_DIGITS}g}") for v in axis_values.tolist()])
