@@ -1,14 +1,21 @@
 """The ``kkcheck`` command line: a thin layer over :mod:`kkcheck.pipeline`.
 
 Every subcommand exits 0 when the analysis ran, whatever it found; 2 on unusable input with
-one line on stderr (``kkcheck: <file>:<line>: <what was expected>``); ``--debug`` shows the
-traceback instead.
+one line on stderr (``kkcheck: <file>:<line>: <what was expected>``); 4 when the output folder
+cannot take the results or a target is refused (``kkcheck: <path>: <cause>``); 3 on an internal
+error; 130 when interrupted. ``--debug`` shows the traceback instead. With
+``--fail-on-inconsistent``, ``check``/``fit``/``run``/``demo`` exit 1 when the KK verdict is not
+"consistent" (for a lab's CI on data files). No command: usage on stderr, exit 2.
+
+Results go to stdout (the terminal summary, or summary.json with ``--json``); progress,
+warnings and errors go to stderr. Progress shows only when stderr is a terminal and not with
+``--quiet``.
 """
 
 from __future__ import annotations
 
 import argparse
-import os
+import json
 import sys
 
 from ._version import __version__
@@ -17,6 +24,7 @@ from .errors import InputError
 __all__ = ["main", "build_parser"]
 
 _AXES = ("energy_ev", "wavelength_nm", "wavelength_um", "wavenumber_cm-1", "frequency_thz")
+_AXES_OUT = (*_AXES, "angular_frequency_rad_s")
 
 _EPILOG = """\
 examples:
@@ -33,8 +41,24 @@ and reported.
 
 
 def _add_input_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("inputs", nargs="+", metavar="FILE", help="tables of n,k or eps1,eps2")
+    p.add_argument(
+        "inputs", nargs="+", metavar="FILE", help="tables of n,k or eps1,eps2 ('-': stdin)"
+    )
     p.add_argument("--out", "-o", required=True, metavar="DIR", help="folder for the results")
+    p.add_argument(
+        "--range",
+        metavar="LO:HI[UNIT]",
+        help="analyse only points inside this window, in any axis unit: 400:1000nm, 0.5:4eV, "
+        "2000:8000cm-1, 10:300THz (no unit: eV)",
+    )
+    p.add_argument(
+        "--axis-out",
+        choices=_AXES_OUT,
+        metavar="UNIT",
+        help="axis unit of the extra repaired table repaired_<UNIT>.csv (default: the first "
+        f"input's unit; one of {', '.join(_AXES_OUT)})",
+    )
+    _add_result_options(p)
     g = p.add_argument_group("reading")
     g.add_argument(
         "--axis",
@@ -94,8 +118,37 @@ def _add_input_options(p: argparse.ArgumentParser) -> None:
         help="energy [eV] where eps1 is trusted most: its sigma is cut 10x in the KK test "
         "(repeatable)",
     )
-    p.add_argument("--quiet", "-q", action="store_true", help="print nothing but errors")
-    p.add_argument("--debug", action="store_true", help="show tracebacks")
+    _add_common(p)
+    _add_overwrite(p)
+
+
+def _add_common(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--quiet", "-q", action="store_true", help="print nothing but errors (no progress)"
+    )
+    p.add_argument("--debug", action="store_true", help="show tracebacks of errors")
+
+
+def _add_result_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--json",
+        action="store_true",
+        help="print summary.json on stdout instead of the text summary",
+    )
+    p.add_argument(
+        "--fail-on-inconsistent",
+        action="store_true",
+        help="exit 1 when the KK verdict is not 'consistent' (default: exit 0 whatever it is)",
+    )
+
+
+def _add_overwrite(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--overwrite",
+        action="store_true",
+        help="replace files in the output folder that kkcheck did not write (inputs are "
+        "never replaced)",
+    )
 
 
 def _add_fit_options(p: argparse.ArgumentParser) -> None:
@@ -163,18 +216,32 @@ def build_parser() -> argparse.ArgumentParser:
     )
     r.add_argument("config", metavar="CONFIG", help="TOML file")
     r.add_argument("--out", "-o", metavar="DIR", help="overrides the config's output folder")
-    r.add_argument("--quiet", "-q", action="store_true")
-    r.add_argument("--debug", action="store_true")
+    _add_result_options(r)
+    _add_common(r)
+    _add_overwrite(r)
+    r.add_argument(
+        "--allow-outside",
+        action="store_true",
+        help="let the config read or write paths outside its own folder (each is reported)",
+    )
 
     d = sub.add_parser(
         "demo",
         help="run the whole job on the bundled demo data",
-        description="Run the whole job on reference_data/demo (an invented material measured "
-        "by three fictional instruments) and write the report.",
+        description="Run the whole job on the demo data shipped with kkcheck (an invented "
+        "material measured by fictional instruments) and write the report to ./kkcheck-demo.",
     )
-    d.add_argument("--out", "-o", metavar="DIR", help="output folder (default: reports/demo)")
-    d.add_argument("--quiet", "-q", action="store_true")
-    d.add_argument("--debug", action="store_true")
+    x = d.add_mutually_exclusive_group()
+    x.add_argument("--out", "-o", metavar="DIR", help="output folder (default: ./kkcheck-demo)")
+    x.add_argument(
+        "--refresh-committed",
+        action="store_true",
+        help="rewrite the committed example report reports/demo of a source checkout "
+        "(maintainers only)",
+    )
+    _add_result_options(d)
+    _add_common(d)
+    _add_overwrite(d)
 
     b = sub.add_parser(
         "batch",
@@ -182,14 +249,26 @@ def build_parser() -> argparse.ArgumentParser:
         description="Vet every table (or TOML config) in a folder, in parallel, and write an "
         "index (HTML and CSV) of verdicts. A bad file is reported and does not stop the others.",
     )
-    b.add_argument("folder", metavar="DIR")
-    b.add_argument("--out", "-o", required=True, metavar="DIR")
+    b.add_argument("folder", metavar="DIR", help="folder of tables and/or TOML configs")
+    b.add_argument(
+        "--out", "-o", required=True, metavar="DIR", help="folder for index.html and index.csv"
+    )
     b.add_argument("--jobs", "-j", type=int, default=0, help="local processes (default: cores)")
-    b.add_argument("--engine", choices=("local", "dask"), default="local")
+    b.add_argument(
+        "--engine",
+        choices=("local", "dask"),
+        default="local",
+        help="local processes (default) or a Dask cluster",
+    )
     b.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler address")
     b.add_argument("--fit", action="store_true", help="also fit a model for each dataset")
-    b.add_argument("--quiet", "-q", action="store_true")
-    b.add_argument("--debug", action="store_true")
+    b.add_argument(
+        "--resume",
+        action="store_true",
+        help="skip datasets whose outputs are complete and match their input's sha256",
+    )
+    _add_common(b)
+    _add_overwrite(b)
     return p
 
 
@@ -215,7 +294,28 @@ def _options_from_args(args) -> dict:
         opts["correct"] = "force"
     if "anchor" in opts:
         opts["anchors_ev"] = tuple(opts.pop("anchor"))
+    if getattr(args, "range", None):
+        from .api import parse_range
+
+        opts["range_ev"] = parse_range(args.range)
+    if getattr(args, "axis_out", None):
+        opts["axis_out"] = args.axis_out
     return opts
+
+
+def _show(res, args) -> int:
+    """Print the result (text or JSON on stdout, warnings on stderr); the exit code."""
+    quiet = getattr(args, "quiet", False)
+    if getattr(args, "json", False):
+        print(json.dumps(res.summary, indent=2, allow_nan=False))
+    elif not quiet:
+        print(res.text_summary(warnings=False))
+    if not quiet:
+        for w in res.warnings:
+            print(f"kkcheck: warning: {w}", file=sys.stderr)
+    if getattr(args, "fail_on_inconsistent", False) and res.kk.verdict != "consistent":
+        return 1
+    return 0
 
 
 def _dispatch(args) -> int:
@@ -224,20 +324,23 @@ def _dispatch(args) -> int:
     quiet = getattr(args, "quiet", False)
     say = (lambda s: None) if quiet else (lambda s: print(s))
     if args.command == "check":
-        res = pipeline.check(args.inputs, out_dir=args.out, **_options_from_args(args))
-        say(res.text_summary())
-    elif args.command == "fit":
+        opts = _options_from_args(args)
+        res = pipeline.check(args.inputs, out_dir=args.out, progress=not quiet, **opts)
+        return _show(res, args)
+    if args.command == "fit":
+        opts = _options_from_args(args)
         res = pipeline.fit(
             args.inputs, out_dir=args.out, report=args.report, **_options_from_args(args)
         )
-        say(res.text_summary())
-    elif args.command == "run":
-        res = pipeline.run(args.config, out_dir=args.out, progress=not quiet)
-        say(res.text_summary())
-    elif args.command == "demo":
-        res = pipeline.demo(out_dir=args.out, progress=not quiet)
-        say(res.text_summary())
-    elif args.command == "batch":
+        return _show(res, args)
+    if args.command == "run":
+        return _show(pipeline.run(args.config, out_dir=args.out, progress=not quiet), args)
+    if args.command == "demo":
+        res = pipeline.demo(
+            out_dir=args.out, progress=not quiet, refresh_committed=args.refresh_committed
+        )
+        return _show(res, args)
+    if args.command == "batch":
         from . import batch
 
         res = batch.run_batch(
@@ -253,24 +356,25 @@ def _dispatch(args) -> int:
     return 0
 
 
-def _single_threaded_blas() -> None:
-    """One BLAS thread per process unless the user chose otherwise.
-
-    The stages solve many small dense problems; threaded BLAS on them mostly contends with
-    itself (and with batch workers), measured 5x slower per QR under load.
-    """
-    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-        os.environ.setdefault(var, "1")
+def _one_line_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Show a warning as ``kkcheck: warning: <message>`` (no file path, no source line)."""
+    text = " ".join(str(message).split())
+    print(f"kkcheck: warning: {text}", file=file if file is not None else sys.stderr)
 
 
 def main(argv=None) -> int:
     """Entry point of the ``kkcheck`` console script; returns the exit code."""
-    _single_threaded_blas()
+    import warnings
+
+    # One BLAS thread: set when the kkcheck package is imported (kkcheck/__init__.py), before
+    # numpy loads, for the command line and the Python API alike.
+    warnings.showwarning = _one_line_warning
     parser = build_parser()
     args = parser.parse_args(argv)
     if args.command is None:
-        parser.print_help()
-        return 0
+        parser.print_usage(sys.stderr)
+        print("kkcheck: error: a command is required (kkcheck --help lists them)", file=sys.stderr)
+        return 2
     debug = getattr(args, "debug", False)
     try:
         return _dispatch(args)

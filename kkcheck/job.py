@@ -122,18 +122,18 @@ class JobOptions:
         Write the HTML report, Markdown summary and figures.
     title : str
         Report title.
-    """
-
-    axis: str | None = None
-    quantity: str | None = None
-    convention: ConventionChoice = "auto"
-    reference: str | None = None
     range_ev : tuple of float or None
         (lo, hi) photon-energy window [eV]: only input points inside it are analysed (each
         source's provenance notes say how many were kept). None: everything.
     axis_out : str or None
         Axis unit of the extra repaired table (``repaired_<unit>.csv``); default: the first
         input's unit. One of :data:`kkcheck.units.AXIS_UNITS`.
+    """
+
+    axis: str | None = None
+    quantity: str | None = None
+    convention: ConventionChoice = "auto"
+    reference: str | None = None
     correct: bool | str = True
     max_correction: float = 0.10
     overlap: OverlapChoice = "side_by_side"
@@ -150,6 +150,8 @@ class JobOptions:
     thickness_nm: float = 100.0
     html: bool = False
     title: str = "kkcheck report"
+    range_ev: tuple[float, float] | None = None
+    axis_out: str | None = None
 
     def __post_init__(self):
         check_choice("convention", self.convention, ConventionChoice)
@@ -157,9 +159,8 @@ class JobOptions:
         check_choice("flagged", self.flagged, FlaggedChoice)
         check_choice("steps", self.steps, StepsChoice)
         check_choice("frequency_unit", self.frequency_unit, FrequencyUnitChoice)
+        _check_range_and_axis(self.range_ev, self.axis_out)
         if self.correct not in (True, False, "force"):
-    range_ev: tuple[float, float] | None = None
-    axis_out: str | None = None
             raise InputError(f'correct must be true, false or "force", got {self.correct!r}')
         if not self.max_correction > 0:
             raise InputError(f"max_correction must be > 0, got {self.max_correction!r}")
@@ -171,22 +172,9 @@ class JobOptions:
 
     def as_dict(self) -> dict:
         return dataclasses.asdict(self)
-        _check_range_and_axis(self.range_ev, self.axis_out)
-        if self.reflectance_scale not in ("auto", "fraction", "percent"):
-            raise InputError(
-                f"reflectance_scale must be auto, fraction or percent, got {self.reflectance_scale!r}"
-            )
 
 
 
-def input_specs(inputs, options: JobOptions) -> tuple[InputSpec, ...]:
-    specs = []
-    for item in inputs:
-        if isinstance(item, InputSpec):
-            specs.append(item)
-        elif isinstance(item, dict):
-            if "path" not in item:
-                raise InputError(f"an input entry has no 'path': {item!r}")
 def _check_range_and_axis(range_ev, axis_out) -> None:
     from .units import AXIS_UNITS
 
@@ -198,6 +186,14 @@ def _check_range_and_axis(range_ev, axis_out) -> None:
             raise InputError(f"range_ev must be (lo, hi) with 0 < lo < hi [eV], got {range_ev!r}")
 
 
+def input_specs(inputs, options: JobOptions) -> tuple[InputSpec, ...]:
+    specs = []
+    for item in inputs:
+        if isinstance(item, InputSpec):
+            specs.append(item)
+        elif isinstance(item, dict):
+            if "path" not in item:
+                raise InputError(f"an input entry has no 'path': {item!r}")
             unknown = set(item) - {"path", "axis", "quantity", "name", "convention"}
             if unknown:
                 raise InputError(
@@ -227,6 +223,12 @@ def job_options(**kw) -> JobOptions:
         raise TypeError(f"unknown option(s): {', '.join(sorted(bad))}")
     if "anchors_ev" in kw and kw["anchors_ev"] is not None:
         kw["anchors_ev"] = tuple(float(a) for a in kw["anchors_ev"])
+    if isinstance(kw.get("range_ev"), str):  # "400:1000nm" as on the command line
+        from .api import parse_range
+
+        kw["range_ev"] = parse_range(kw["range_ev"])
+    elif kw.get("range_ev") is not None:
+        kw["range_ev"] = tuple(float(a) for a in kw["range_ev"])
     return JobOptions(**kw)
 
 
@@ -235,12 +237,6 @@ CONFIG_SECTIONS = {
     "merge": {
         "reference": "reference",
         "correct": "correct",
-    if isinstance(kw.get("range_ev"), str):  # "400:1000nm" as on the command line
-        from .api import parse_range
-
-        kw["range_ev"] = parse_range(kw["range_ev"])
-    elif kw.get("range_ev") is not None:
-        kw["range_ev"] = tuple(float(a) for a in kw["range_ev"])
         "max_correction": "max_correction",
         "overlap": "overlap",
         "rank_sources": "rank_sources",

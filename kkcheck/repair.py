@@ -33,9 +33,9 @@ from __future__ import annotations
 
 import warnings
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from .errors import InputError
 from .kk.basisfit import KKBasisModel
@@ -44,6 +44,9 @@ from .noise import MIN_POINTS, NOISE_FLOOR_ABS, NOISE_FLOOR_REL, noise_floor
 from .options import RepairChoice, check_choice, choices
 from .spectrum import Flag, Spectrum
 from .units import AXIS_UNITS, eps_to_nk, from_energy_ev
+
+if TYPE_CHECKING:  # pandas is imported where a frame is made (start-up time)
+    import pandas as pd
 
 __all__ = [
     "POLICIES",
@@ -151,6 +154,8 @@ class RepairResult:
             sigma_eps2=self.sigma_eps2,
             flags=self.flags,
         )
+        import pandas as pd
+
         frame = pd.DataFrame(cols)
         return frame.sort_values(axis, kind="stable").reset_index(drop=True)
 
@@ -165,6 +170,8 @@ class RepairResult:
             cols["energy_ev"] = e
         for f in ("source", "component", "old", "new", "reason"):
             cols[f] = [getattr(c, f) for c in self.changes]
+        import pandas as pd
+
         return pd.DataFrame(cols)
 
 

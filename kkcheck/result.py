@@ -50,8 +50,10 @@ class JobResult:
         The last three are present when the fit was asked for.
     summary : dict
         The content of summary.json.
-    model : dict or None
-        The content of model.json (the model object itself is ``fit.model``).
+    model_json : dict or None
+        The content of model.json (plain JSON values). The model object, a
+        :class:`~kkcheck.rational.PolePairModel` that evaluates eps, is :attr:`model`
+        (the same as ``fit.model``).
     warnings : tuple of str
         Every warning raised by a stage.
     out_dir : pathlib.Path or None
@@ -75,15 +77,58 @@ class JobResult:
     repair: RepairResult | None = None
     fit: FitResult | None = None
     slab: SlabComparison | None = None
-    summary: dict = field(default_factory=dict)
-    model: dict | None = None
+    summary: dict = field(default_factory=dict, repr=False)
+    model_json: dict | None = field(default=None, repr=False)
     warnings: tuple[str, ...] = ()
     out_dir: Path | None = None
     files: tuple[Path, ...] = ()
     seconds: float = 0.0
 
-    def text_summary(self) -> str:
-        """A few lines for the terminal."""
+    @property
+    def model(self):
+        """The fitted pole-pair model (:class:`~kkcheck.rational.PolePairModel`), or None.
+
+        ``result.model(energy_ev)`` is not a call: use ``result.model.eps(energy_ev)``; the
+        JSON form written to model.json is :attr:`model_json`.
+        """
+        return None if self.fit is None else self.fit.model
+
+    @property
+    def verdict(self) -> str:
+        """The KK test's verdict (``"consistent"``, ``"inconsistent"``, ...)."""
+        return self.kk.verdict
+
+    def __repr__(self) -> str:
+        return _short_repr(self)
+
+    def report(self) -> str:
+        """The text the command line prints (same as :meth:`text_summary`)."""
+        return self.text_summary()
+
+    def to_frame(self):
+        """The analysed spectrum beside its KK reconstruction, one row per point.
+
+        Columns ``energy_ev, eps1, eps2, sigma_eps1, sigma_eps2, eps1_kk, eps2_kk, z1, z2,
+        source, flags`` (``z`` = residual / sigma; ``*_kk`` the KK-consistent reconstruction of
+        the test) and, after a fit, ``eps1_model, eps2_model`` (the pole-pair model).
+        """
+        from .result_views import result_frame
+
+        return result_frame(self)
+
+    def plot(self, ax=None):
+        """Data, KK reconstruction and (after a fit) the model; returns the matplotlib figure."""
+        from .report.figures.overview import overview_figure
+
+        return overview_figure(self, ax=ax)
+
+    def _repr_html_(self) -> str:
+        from .result_views import result_html
+
+        return result_html(self)
+
+    def text_summary(self, warnings: bool = True) -> str:
+        """A few lines for the terminal (the command line prints warnings on stderr instead)."""
         lines = (
             self._input_lines()
             + self._merge_lines()
@@ -91,7 +136,8 @@ class JobResult:
             + self._kk_lines()
             + self._fit_lines()
         )
-        lines += [f"  warning: {w}" for w in self.warnings]
+        if warnings:
+            lines += [f"  warning: {w}" for w in self.warnings]
         if self.out_dir is not None:
             lines.append(f"wrote {len(self.files)} files to {self.out_dir}")
         return "\n".join(lines)
@@ -163,7 +209,7 @@ class JobResult:
             f = self.fit
             cert = "certified passive" if f.passivity.certified else "NOT certified passive"
             lines.append(
-                f"model: {f.n_pairs} pole entr{'ies' if f.n_pairs != 1 else 'y'}, rms rel. error "
+                f"model: {_pairs_text(f.n_pairs)}, rms rel. error "
                 f"{f.rms_rel:.2%}, {cert}, {'stable' if f.stable else 'UNSTABLE'}; valid only "
                 f"over {f.range_ev[0]:.4g}-{f.range_ev[1]:.4g} eV"
             )
@@ -186,3 +232,24 @@ def _source_text(s: dict) -> str:
         return "too little overlap to link it to the reference: scale and offset unknown"
     how = f"scale {s['scale']:.4f}, eps1 offset {s['eps1_offset']:+.4f}"
     return how + ("" if s.get("applied") else " (not applied)")
+
+
+def _short_repr(r: JobResult) -> str:
+    """One line: sources, points, verdict, model (never the arrays)."""
+    n_pts = sum(len(d) for d in r.datasets)
+    parts = [
+        f"{len(r.datasets)} source{'s' if len(r.datasets) != 1 else ''}",
+        f"{n_pts} points",
+        f"KK {r.kk.verdict} (chi2/dof {r.kk.chi2_dof:.3g}, {len(r.kk.regions)} regions)",
+    ]
+    if r.fit is not None:
+        cert = "certified passive" if r.fit.passivity.certified else "NOT certified passive"
+        parts.append(f"{_pairs_text(r.fit.n_pairs)}, {cert}")
+    if r.out_dir is not None:
+        parts.append(f"out_dir={str(r.out_dir)!r}")
+    return f"<JobResult: {'; '.join(parts)}>"
+
+
+def _pairs_text(n: int) -> str:
+    """``"4 pole pairs"`` (the one term for the model's order everywhere)."""
+    return f"{n} pole pair{'s' if n != 1 else ''}"

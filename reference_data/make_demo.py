@@ -1,4 +1,4 @@
-"""Make the invented demo dataset in reference_data/demo/ (seeded, reproducible).
+"""Make the invented demo dataset in kkcheck/demo_data/ (seeded, reproducible).
 
 The demo material is fictional: a 'ZX-7 oxynitride film' whose dielectric function is built
 from a Tauc–Lorentz interband term (Jellison & Modine 1996) plus one Lorentz infrared phonon
@@ -18,7 +18,8 @@ from kkcheck.materials import lorentz, tauc_lorentz
 from kkcheck.units import EV_PER_INV_CM, HC_EV_NM, eps_to_nk
 
 SEED = 20261202
-OUT = Path(__file__).resolve().parent / "demo"
+#: The demo tables ship inside the package (package data), so an installed kkcheck has them.
+OUT = Path(__file__).resolve().parent.parent / "kkcheck" / "demo_data"
 
 #: Invented parameters of the fictional material (eV).
 EPS_INF = 1.9

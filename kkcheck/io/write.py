@@ -116,6 +116,13 @@ def _frame_of(data) -> tuple[pd.DataFrame, Dataset | None]:
     raise TypeError(f"expected a Dataset, Spectrum or DataFrame, got {type(data).__name__}")
 
 
+#: Significant digits of an axis converted from eV on writing (the conversion's relative
+#: round-off is ~1e-16; 12 digits keep every digit a table of measured data can carry).
+AXIS_DIGITS = 12
+#: Axis header where the canonical name is not a spelling the reader accepts.
+_AXIS_HEADER = {"angular_frequency_rad_s": "angular_frequency_rad/s"}
+
+
 def _column_text(values: np.ndarray) -> list[str]:
     """Cells of one column: floats as shortest round-trip repr, ints as ints, text sanitised."""
     arr = np.asarray(values)
@@ -200,6 +207,8 @@ def write_table_csv(
     cols += [c for c in frame.columns if c not in cols and c not in ("energy_ev", axis)]
     axis_values = from_energy_ev(frame["energy_ev"].to_numpy(float), axis)
     order = np.argsort(axis_values, kind="stable")
+    if axis != "energy_ev":  # conversion round-off (251.99999999999997 nm) is not data
+        axis_values = np.array([float(f"{v:.{AXIS_DIGITS}g}") for v in axis_values.tolist()])
 
     head = [
         f"kkcheck {__version__}",
@@ -216,13 +225,6 @@ def write_table_csv(
         head += str(line).splitlines() or [""]
     out = ["# " + h.replace("\r", " ") for h in head]
     out.append(",".join([_AXIS_HEADER.get(axis, axis), *map(str, cols)]))
-#: Significant digits of an axis converted from eV on writing (the conversion's relative
-#: round-off is ~1e-16; 12 digits keep every digit a table of measured data can carry).
-AXIS_DIGITS = 12
-#: Axis header where the canonical name is not a spelling the reader accepts.
-_AXIS_HEADER = {"angular_frequency_rad_s": "angular_frequency_rad/s"}
-
-
     columns = [_column_text(axis_values[order])]
     columns += [_column_text(frame[c].to_numpy()[order]) for c in cols]
     out.extend(map(",".join, zip(*columns, strict=True)))
@@ -309,5 +311,3 @@ def write_text(path, text: str, *, overwrite_protect=()):
     target = check_not_input(path, overwrite_protect)
     _atomic_write(target, text)
     return target
-    if axis != "energy_ev":  # conversion round-off (251.99999999999997 nm) is not data
-        axis_values = np.array([float(f"{v:.{AXIS_DIGITS}g}") for v in axis_values.tolist()])

@@ -219,7 +219,7 @@ def _repair_rows(rep) -> dict:
 def _model_block(result) -> dict:
     from ..rational.model import physical_terms
 
-    model = dict(result.model)
+    model = dict(result.model_json)
     model["equivalents"] = [
         {"kind": t.kind, **t.as_dict()} for t in physical_terms(result.fit.model)
     ]
@@ -259,7 +259,7 @@ def report_context(result, figure_list=(), *, command: str = "") -> ReportContex
         kk={**s["kk"], "threshold": _Z_THRESHOLD},
         sum_rules=_sum_rule_rows(result.sum_rules),
         repair=_repair_rows(result.repair) if result.repair is not None else None,
-        model=_model_block(result) if result.model is not None else None,
+        model=_model_block(result) if result.model_json is not None else None,
         slab=result.slab.to_dict() if result.slab is not None else None,
         figures=tuple(figure_list),
         cautions=tuple(_cautions(result)),
