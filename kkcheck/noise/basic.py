@@ -1,4 +1,4 @@
-"""Noise of sampled curves: the one noise module below every stage.
+"""Noise of sampled curves: constants and residual-based estimators (see :mod:`kkcheck.noise`).
 
 One MAD-to-sigma constant, one noise floor and one minimum point count, used by the merge,
 the clean stage, the KK test, the repair and the fit.
@@ -13,9 +13,8 @@ neighbour_noise_sigma, running_noise_sigma
 estimate_noise, noise_per_point, NoiseRegion, NoiseReport
     Noise per source, component and energy region (the clean stage's report), and the
     per-point eps sigmas it implies.
-local_noise, spectrum_noise, NoiseEstimate
-    Per-point sigma of eps1 and eps2 from cubic pseudo-residuals, given uncertainties kept
-    (what the KK test and the later stages weigh by).
+local_noise
+    Running noise of one curve from cubic pseudo-residuals.
 
 Every per-source estimate works in the quantity the source was written in: ``n, k`` for a
 source read as n,k and ``eps1, eps2`` for one read as eps (noise uniform in n,k is not uniform
@@ -41,8 +40,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.ndimage import median_filter, uniform_filter1d
 
-from .spectrum import Spectrum
-from .units import eps_to_nk, sigma_nk_to_eps
+from ..spectrum import Spectrum
+from ..units import eps_to_nk, sigma_nk_to_eps
 
 __all__ = [
     "NORMAL_MAD",
@@ -56,9 +55,7 @@ __all__ = [
     "NoiseReport",
     "estimate_noise",
     "noise_per_point",
-    "NoiseEstimate",
     "local_noise",
-    "spectrum_noise",
 ]
 
 #: 1 / Phi^-1(3/4): the MAD of normal noise times this is its standard deviation (Hampel 1974).
@@ -76,9 +73,7 @@ MIN_POINTS = 8
 _MIN_CURVE_POINTS = 5
 
 
-def noise_floor(
-    values, rel: float = NOISE_FLOOR_REL, abs_: float = NOISE_FLOOR_ABS
-) -> np.ndarray:
+def noise_floor(values, rel: float = NOISE_FLOOR_REL, abs_: float = NOISE_FLOOR_ABS) -> np.ndarray:
     """The smallest sigma any stage assigns to a value: max(rel |v|, abs_)."""
     return np.maximum(rel * np.abs(np.asarray(values)), abs_)
 
@@ -352,27 +347,7 @@ def noise_per_point(spectrum: Spectrum, noise: NoiseReport) -> tuple[np.ndarray,
     return s1, s2
 
 
-# --------------------------------------------------------------------------- per-point estimate
-
-
-@dataclass(frozen=True)
-class NoiseEstimate:
-    """Per-point noise of a spectrum.
-
-    Attributes
-    ----------
-    sigma_eps1, sigma_eps2 : numpy.ndarray
-        Standard uncertainty of eps1 and eps2 per point [eps units], floor applied.
-    estimated : numpy.ndarray
-        True where the value was estimated from the data (False where the spectrum gave it).
-    notes : tuple of str
-        What was done per source.
-    """
-
-    sigma_eps1: np.ndarray
-    sigma_eps2: np.ndarray
-    estimated: np.ndarray
-    notes: tuple[str, ...]
+# --------------------------------------------------------------------------- local cubic
 
 
 def _pseudo_residuals(x: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -447,91 +422,3 @@ def local_noise(energy_ev, values, window: int | None = None) -> np.ndarray:
         return np.zeros(m)
     s = np.where(s > 0, s, pos.min())
     return np.exp(uniform_filter1d(np.log(s), size=window, mode="mirror"))
-
-
-def _estimate_source(
-    spectrum: Spectrum, k: int, sel: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, str]:
-    """Estimated (sigma_eps1, sigma_eps2, note) of the points ``sel`` of source ``k``."""
-    name = spectrum.source_names[k]
-    e = spectrum.energy_ev[sel]
-    eps = spectrum.eps[sel]
-    # points sharing an energy within one source cannot occur in a Dataset; guard anyway
-    ue, first = np.unique(e, return_index=True)
-    if ue.size < _MIN_CURVE_POINTS:
-        note = f"source {name!r}: fewer than 5 points, noise set to the floor"
-        return np.zeros(sel.size), np.zeros(sel.size), note
-    if spectrum.source_quantity[k] == "nk":
-        n, kk = eps_to_nk(eps)
-        sn = np.interp(e, ue, local_noise(ue, n[first]))
-        sk = np.interp(e, ue, local_noise(ue, kk[first]))
-        e1, e2 = sigma_nk_to_eps(n, kk, sn, sk)
-        note = (
-            f"source {name!r}: noise estimated in n,k (median {np.median(sn):.2g}, "
-            f"{np.median(sk):.2g}) and propagated to eps"
-        )
-        return e1, e2, note
-    e1 = np.interp(e, ue, local_noise(ue, eps.real[first]))
-    e2 = np.interp(e, ue, local_noise(ue, eps.imag[first]))
-    note = (
-        f"source {name!r}: noise estimated in eps1,eps2 (median {np.median(e1):.2g}, "
-        f"{np.median(e2):.2g})"
-    )
-    return e1, e2, note
-
-
-def spectrum_noise(
-    spectrum: Spectrum,
-    *,
-    rel_floor: float = NOISE_FLOOR_REL,
-    abs_floor: float = NOISE_FLOOR_ABS,
-) -> NoiseEstimate:
-    """Per-point noise of eps1 and eps2 for every point of ``spectrum``.
-
-    Parameters
-    ----------
-    spectrum : Spectrum
-        The merged data.
-    rel_floor, abs_floor : float
-        Floor sigma >= max(rel_floor * |eps|, abs_floor) applied to every point
-        (:func:`noise_floor`).
-
-    Returns
-    -------
-    NoiseEstimate
-
-    Notes
-    -----
-    For each source separately: where ``sigma_eps1`` / ``sigma_eps2`` are given (not NaN)
-    they are used as they are; otherwise the noise is estimated from the data with
-    :func:`local_noise`, on n and k for a source whose file gave n,k (then propagated to eps
-    with :func:`kkcheck.units.sigma_nk_to_eps`: noise uniform in n,k grows with |N| in eps),
-    on eps1 and eps2 otherwise.
-
-    The floor keeps a noiseless table from giving infinite chi2; its defaults
-    (:data:`NOISE_FLOOR_REL`, :data:`NOISE_FLOOR_ABS`) are the rounding of a table printed
-    with 4-5 significant digits. It is also about the resolution limit of the KK basis: a
-    noiseless table of a 10 cm^-1 phonon sampled every 1 cm^-1 needs a floor of
-    ~3e-4 |eps| to pass; raise ``rel_floor`` for such noiseless tables.
-    """
-    m = len(spectrum)
-    s1 = np.array(spectrum.sigma_eps1, float)
-    s2 = np.array(spectrum.sigma_eps2, float)
-    est = np.zeros(m, bool)
-    notes = []
-    for k in range(len(spectrum.source_names)):
-        sel = np.nonzero(spectrum.source == k)[0]
-        need = ~(np.isfinite(s1[sel]) & np.isfinite(s2[sel]))
-        if sel.size == 0 or not np.any(need):
-            continue
-        e1, e2, note = _estimate_source(spectrum, k, sel)
-        notes.append(note)
-        miss1 = ~np.isfinite(s1[sel])
-        miss2 = ~np.isfinite(s2[sel])
-        s1[sel[miss1]] = e1[miss1]
-        s2[sel[miss2]] = e2[miss2]
-        est[sel[miss1 | miss2]] = True
-    floor = noise_floor(spectrum.eps, rel_floor, abs_floor)
-    s1 = np.maximum(np.nan_to_num(s1, nan=0.0), floor)
-    s2 = np.maximum(np.nan_to_num(s2, nan=0.0), floor)
-    return NoiseEstimate(sigma_eps1=s1, sigma_eps2=s2, estimated=est, notes=tuple(notes))
