@@ -8,7 +8,7 @@ the certificate's closed-form losses or its integer polynomial.
 import numpy as np
 import pytest
 
-from kkcheck.rational import PolePairModel, certify_passivity, pair_is_passive
+from kkcheck.rational import PolePairModel, certify_passivity
 from kkcheck.rational.exact import decide_passive, exact_numerator, positive_root_count
 
 

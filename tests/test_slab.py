@@ -135,10 +135,60 @@ def test_compare_slab_keeps_its_arrays_and_summary_block():
         "max_abs_dT",
         "at_dR_ev",
         "at_dT_ev",
-    ]
+        "grid_points",
+        "interpolation",
+        "incoherent",
+    ]  # keys are only ever added (DESIGN.md: other programs read summary.json)
     assert d["thickness_nm"] == 40.0 and d["geometry"] == "free-standing"
     assert d["max_abs_dR"] == c.max_dR and d["at_dT_ev"] == c.at_dT_ev
     bad = dataclasses.replace(c, max_dR=float("nan"), max_dT=-0.0)
     assert bad.to_dict()["max_abs_dR"] is None
     assert math.copysign(1.0, bad.to_dict()["max_abs_dT"]) == 1.0
     json.dumps(bad.to_dict(), allow_nan=False)  # raises on NaN or infinity
+
+
+def test_fringe_grid_resolves_a_thick_slab():
+    # closed form: fringe period in photon energy hc / (2 n d) (Born & Wolf 1999, sec. 1.6);
+    # a 10 um slab of n = 3.6 near 1 eV: 1239.84 / 72000 = 0.0172 eV per fringe
+    from kkcheck.slab import POINTS_PER_FRINGE, fringe_grid
+
+    rows = np.linspace(1.0, 3.0, 81)  # a table every 0.025 eV: coarser than one fringe
+    g = fringe_grid(rows, 3.6, 10_000.0)
+    period = 1239.841984 / (2 * 3.6 * 10_000.0)
+    assert np.max(np.diff(g)) <= period / POINTS_PER_FRINGE * 1.0001
+    assert np.all(np.isin(rows, g))
+
+
+def test_resolved_check_finds_the_fringe_error_the_rows_miss():
+    # a constant-index slab, model off by dn = 0.002: the coherent T of a 10 um slab swings by
+    # ~0.5 (Airy, Born & Wolf 1999) between rows; the incoherent T barely moves (Heavens 1955)
+    from kkcheck.slab import FilmSpec, compare_film
+
+    class Const:
+        def __init__(self, n):
+            self.n = n
+
+        def eps(self, w):
+            return np.full(np.shape(w), self.n**2, complex)
+
+    rows = np.linspace(1.0, 1.4, 9)
+    table = np.full(rows.size, (3.5 + 0j) ** 2)
+    coarse = compare_slab(rows, table, Const(3.502), 10_000.0)
+    fine = compare_film(rows, table, Const(3.502), FilmSpec(10_000.0))
+    # exact: Delta(phase) = 4 pi d dn / lambda ~ 0.2 rad; T of a lossless slab between
+    # T_min = 1 - R_max and 1 (Born & Wolf): the sampled maximum must exceed the rows' one
+    assert fine.max_dT > coarse.max_dT
+    assert fine.max_dT > 0.1
+    assert fine.incoherent is not None and fine.incoherent[2] < 1e-3
+    assert fine.to_dict()["interpolation"].startswith("n linear")
+
+
+def test_index_interpolated_log_linear_in_k():
+    # common practice, no source: k between rows with k = 1e-2 and 1e-4 is 1e-3 half way
+    from kkcheck.slab import interpolate_index
+
+    e = np.array([1.0, 2.0])
+    n = np.array([3.0 + 1e-2j, 3.2 + 1e-4j])
+    got = interpolate_index(e, n**2, [1.5])
+    assert got[0].imag == pytest.approx(1e-3, rel=1e-9)
+    assert got[0].real == pytest.approx(3.1, rel=1e-9)

@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..noise import NOISE_FLOOR_ABS, NOISE_FLOOR_REL
+from ..noise import noise_floor
 from ..options import DOWNWEIGHT_FACTOR, FlagPolicy
 from ..spectrum import Flag, first_of_each_energy
 
@@ -69,8 +69,8 @@ def fit_points(repaired, regions: Sequence, policy: FlagPolicy) -> FitPoints:
     s2 = np.where(bad, DOWNWEIGHT_FACTOR * repaired.sigma_eps2, repaired.sigma_eps2)
     # The repair's band is exactly 0 where the nonnegative basis pins eps2 at 0 (a filled
     # transparent gap); the fit weights by 1/sigma, so it is floored at the KK test's noise
-    # floor (relative 1e-4 of |eps| plus absolute 1e-6).
-    floor = NOISE_FLOOR_REL * np.abs(eps) + NOISE_FLOOR_ABS
+    # floor, the one every stage uses (kkcheck.noise.noise_floor: max of relative and absolute).
+    floor = noise_floor(eps)
     s1 = np.maximum(np.nan_to_num(np.asarray(s1, float), nan=np.inf), floor)
     s2 = np.maximum(np.nan_to_num(np.asarray(s2, float), nan=np.inf), floor)
     keep = first_of_each_energy(e)

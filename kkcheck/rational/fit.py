@@ -255,6 +255,12 @@ def fit_pole_pairs(
     w, e, sig = _validate_data(energy_ev, eps, sigma_eps1, sigma_eps2)
     _validate_options(pairs, tol, conductor, max_pairs)
     have_sigma = sig[0] is not None
+    cap = max(1, w.size // 6)  # never more entries than a sixth of the points
+    notes = []
+    if pairs is not None and int(pairs) > cap:
+        notes.append(f"pairs={int(pairs)} lowered to {cap}: {w.size} points fix at most {cap}")
+        pairs = cap
+    max_pairs = min(int(max_pairs), cap)
     data = FitData(
         energy_ev=w,
         eps=e,
@@ -262,32 +268,34 @@ def fit_pole_pairs(
         weight2=1 / sig[1] if have_sigma else 1 / np.abs(e),
         have_sigma=have_sigma,
         conductor=detect_conductor(w, e) if conductor == "auto" else bool(conductor),
+        max_entries=cap,
     )
     target = Target(tol, chi2_target, bool(enforce_passivity))
     if pairs is not None:
-        search = fixed_order_search(data, int(pairs))
+        search = fixed_order_search(data, int(pairs), bool(enforce_passivity))
     elif tol is not None or have_sigma:
         search = target_search(data, target, int(max_pairs))
     else:
-        search = bic_search(data, int(max_pairs))
-    result = _result(data, target, search)
+        search = bic_search(data, int(max_pairs), bool(enforce_passivity))
+    result = _result(data, target, search, tuple(notes))
     for msg in result.warnings:
         warnings.warn(msg, RuntimeWarning, stacklevel=2)
     return result
 
 
-def _result(data: FitData, target: Target, search: SearchOutcome) -> FitResult:
+def _result(data: FitData, target: Target, search: SearchOutcome, pre=()) -> FitResult:
     """The FitResult of the chosen candidate, enforcing passivity if the search did not."""
     cand = search.candidates[search.chosen]
     if cand.enforcement is None:
         model, enf, cert = enforce_if_needed(data, cand.model, cand.certificate, target.enforce)
     else:
         model, enf, cert = cand.model, cand.enforcement, cand.certificate
-    notes = list(search.notes)
+    notes = list(pre) + list(search.notes)
     if not cert.certified:
         notes.append(
-            f"model is not certified passive (min eps2 {cert.min_eps2:.3g} at "
-            f"{cert.min_energy_ev:.4g} eV)"
+            f"NO CERTIFIED MODEL: the best candidate is not certified passive (min eps2 "
+            f"{cert.min_eps2:.3g} at {cert.min_energy_ev:.4g} eV); it is not the fit, and is "
+            "written as model_uncertified.json"
         )
     if not model.stable:
         notes.append("model is not stable (eps_inf <= 0 or a pole with Re a >= 0)")

@@ -46,6 +46,12 @@ class OrderRow:
         variable-projection polish (:func:`~kkcheck.rational.vfit.polish_poles`) improved it and
         ", widened above the band" when the kept fit is its refit by
         :func:`~kkcheck.rational.vfit.broaden_above_band`.
+
+    rms_rel_free : float
+        RMS relative error of the unconstrained fit with the same poles (NaN when not known);
+        the other errors are those of the passive-by-construction fit the search keeps.
+    certified : bool
+        Whether the kept fit of this row is certified passive.
     """
 
     n_start: int
@@ -57,6 +63,8 @@ class OrderRow:
     bic: float
     passive_raw: bool
     start: str = "band"
+    rms_rel_free: float = float("nan")
+    certified: bool = False
 
 
 def fit_metrics(model: PolePairModel, energy_ev, eps, w1, w2, have_sigma: bool):

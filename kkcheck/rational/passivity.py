@@ -40,6 +40,7 @@ from .model import (
     model_from_vector,
     parameter_vector,
 )
+from .vfit import EPS_INF_MIN
 
 __all__ = [
     "PassivityCertificate",
@@ -56,6 +57,8 @@ __all__ = [
 #: magnitude is below this fraction of the sum of magnitudes of the individual contributions
 #: is treated as zero (round-off of the sum), not as a violation.
 ROUNDOFF_RTOL = 1e-10
+#: First relative margin of the enforcement's constraints (grown x100 per failed solve).
+_MARGIN_START = 1e-13
 
 
 @dataclass(frozen=True)
@@ -478,7 +481,7 @@ def _ldp(g: np.ndarray, h: np.ndarray) -> np.ndarray | None:
 
 
 def enforce_passivity(
-    model: PolePairModel, energy_ev, eps, weight1=None, weight2=None, *, max_iter: int = 12
+    model: PolePairModel, energy_ev, eps, weight1=None, weight2=None, *, max_iter: int = 20
 ) -> tuple[PolePairModel, EnforcementRecord]:
     """Make ``model`` passive by perturbing its residues (and eps_inf), poles fixed.
 
@@ -509,7 +512,9 @@ def enforce_passivity(
     eps2 numerator P (limits w -> 0 and w -> inf). This is the residue-perturbation idea of
     Gustavsen & Semlyen [1]_ with the data misfit as objective. The QR factor of the weighted
     design reduces it to least-distance programming, solved exactly by NNLS [3]_. Small
-    positive margins m_k (1e-8 of the summed term magnitudes) keep eps2 off zero between grid
+    positive margins m_k (from 1e-13 of the summed term magnitudes, x100 per failed solve: a
+    boundary case such as a Drude term, whose top coefficient of P cancels exactly, then costs
+    ~1e-13, not 1e-6, of the fit) keep eps2 off zero between grid
     points; the grid grows by the new violation points until :func:`certify_passivity` passes.
     """
     energy_ev = np.asarray(energy_ev, dtype=float)
@@ -536,7 +541,7 @@ def enforce_passivity(
     grid = np.geomspace(lo * 1e-4, hi * 1e4, 600)
     extra = list(cert.crossing_energies_ev) + [cert.min_energy_ev]
     cur, theta_cur = model, parameter_vector(model)
-    n_con, margin = 0, 1e-8
+    n_con, margin = 0, _MARGIN_START
     for it in range(1, max_iter + 1):
         pts = np.unique(np.concatenate([grid, np.asarray(extra, float)]))
         pts = pts[np.isfinite(pts) & (pts > 0)]
@@ -548,8 +553,10 @@ def enforce_passivity(
         rows = [mat[nzr[0]], mat[nzr[-1]]]
         ga = np.hstack([np.zeros((2, 1)), np.array(rows)])
         ha = margin * (np.abs(np.array(rows)) @ np.abs(theta_cur[1:]))
-        g = np.vstack([gm, ga])
-        h = np.concatenate([hm, ha])
+        gi = np.zeros((1, gm.shape[1]))
+        gi[0, 0] = 1.0  # eps_inf >= EPS_INF_MIN (vfit.EPS_INF_MIN: the physical bound)
+        g = np.vstack([gm, ga, gi])
+        h = np.concatenate([hm, ha, [EPS_INF_MIN]])
         rn = np.linalg.norm(g, axis=1)
         rn[rn == 0] = 1.0
         g, h = g / rn[:, None], h / rn
@@ -568,7 +575,7 @@ def enforce_passivity(
             ra, ma = _rel_errors(cur, energy_ev, eps)
             return cur, EnforcementRecord(True, True, it, rb, ra, mb, ma, n_con)
         extra += list(cert.crossing_energies_ev) + [cert.min_energy_ev]
-        margin = max(margin * 10, 1e-8)
+        margin = max(margin * 100, _MARGIN_START)
     ra, ma = _rel_errors(cur, energy_ev, eps)
     warnings.warn(
         f"passivity enforcement did not reach a certified model in {max_iter} solves "

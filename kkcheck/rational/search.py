@@ -87,6 +87,9 @@ class FitData:
         Whether sigma was given (then chi2/dof is defined).
     conductor : bool
         Whether the conductor term (pole at s = 0) is fitted.
+    max_entries : int
+        Most entries a kept fit may have (a sixth of the points: each entry carries four real
+        parameters and needs points on both sides of its resonance; our choice).
     """
 
     energy_ev: np.ndarray
@@ -95,6 +98,7 @@ class FitData:
     weight2: np.ndarray
     have_sigma: bool
     conductor: bool
+    max_entries: int = 10**9
 
     @property
     def size(self) -> int:
@@ -234,23 +238,51 @@ def _steps(data: FitData, top: int) -> Iterator[tuple[int, list[Start]]]:
         yield n, tried
 
 
-def _evaluate(data: FitData, n: int, start: Start) -> Candidate:
-    """The candidate of ``start`` at search step ``n``: its table row and its certificate."""
-    rms, mx, chi2, bic, npar = data.metrics(start.model)
+def _evaluate(data: FitData, n: int, start: Start, enforce: bool = True) -> Candidate:
+    """The candidate of ``start`` at step ``n``, passive by construction when ``enforce``.
+
+    The residues (and eps_inf) of the start's poles are re-solved as least squares under the
+    linear constraints eps2 >= 0 on a refined grid and eps_inf >= EPS_INF_MIN
+    (:func:`enforce_if_needed`, :func:`_made_passive`); the row then gives the errors of that
+    passive fit, with the unconstrained rms beside it (``rms_rel_free``). A fit with more
+    entries than ``data.max_entries`` stays in the table but is never chosen.
+    """
     cert = certify(start.model)
-    row = OrderRow(n, start.model.n_pairs, npar, rms, mx, chi2, bic, cert.certified, start.label)
-    return Candidate(row, start.model, cert)
+    rms, mx, chi2, bic, npar = data.metrics(start.model)
+    row = OrderRow(
+        n, start.model.n_pairs, npar, rms, mx, chi2, bic, cert.certified, start.label, rms,
+        _ok(data, start.model, cert),
+    )  # fmt: skip
+    raw = Candidate(row, start.model, cert)
+    return _made_passive(data, raw) if enforce else raw
 
 
-def fixed_order_search(data: FitData, pairs: int) -> SearchOutcome:
+def _ok(data: FitData, model: PolePairModel, cert: PassivityCertificate) -> bool:
+    return bool(cert.certified and model.stable and model.n_pairs <= data.max_entries)
+
+
+def _made_passive(data: FitData, raw: Candidate) -> Candidate:
+    """``raw`` with its residues re-solved under the passivity constraints (poles fixed)."""
+    model, enf, cert = enforce_if_needed(data, raw.model, raw.certificate, True)
+    if model is raw.model:
+        return replace(raw, enforcement=enf)
+    rms, mx, chi2, bic, npar = data.metrics(model)
+    row = replace(
+        raw.row, n_pairs=model.n_pairs, n_params=npar, rms_rel=rms, max_rel=mx, chi2_dof=chi2,
+        bic=bic, certified=_ok(data, model, cert),
+    )  # fmt: skip
+    return Candidate(row, model, cert, enf)
+
+
+def fixed_order_search(data: FitData, pairs: int, enforce: bool = True) -> SearchOutcome:
     """Fit exactly ``pairs`` starting entries; steps 1 ... pairs-1 only seed the added pair."""
     last: list[Start] = []
     for _, tried in _steps(data, pairs):  # every step runs: each seeds the next pole-adding start
         last = tried
-    return SearchOutcome((_evaluate(data, pairs, last[0]),), 0)
+    return SearchOutcome((_evaluate(data, pairs, last[0], enforce),), 0)
 
 
-def bic_search(data: FitData, max_pairs: int) -> SearchOutcome:
+def bic_search(data: FitData, max_pairs: int, enforce: bool = True) -> SearchOutcome:
     """Smallest BIC among the steps' leading fits (Schwarz 1978).
 
     The search stops two steps after the last BIC improvement, or when a fit is exact
@@ -259,12 +291,20 @@ def bic_search(data: FitData, max_pairs: int) -> SearchOutcome:
     found: list[Candidate] = []
     best = 0
     for n, tried in _steps(data, max_pairs):
-        found.append(_evaluate(data, n, tried[0]))
+        found.append(_evaluate(data, n, tried[0], enforce))
         if found[-1].row.bic < found[best].row.bic:
             best = len(found) - 1
-        if len(found) - 1 - best >= 2 or found[-1].row.rms_rel < 1e-12:
+        if len(found) - 1 - best >= 2 or found[-1].row.rms_rel_free < 1e-12:
             break
-    return SearchOutcome(tuple(found), choose_by_bic([c.row for c in found]))
+    return SearchOutcome(tuple(found), _choose(found, choose_by_bic))
+
+
+def _choose(found: list[Candidate], rule) -> int:
+    """Index chosen by ``rule`` among the certified rows (all rows when none is certified)."""
+    ok = [i for i, c in enumerate(found) if c.row.certified]
+    if not ok:
+        return rule([c.row for c in found])
+    return ok[rule([found[i].row for i in ok])]
 
 
 def target_search(data: FitData, target: Target, max_pairs: int) -> SearchOutcome:
@@ -280,10 +320,13 @@ def target_search(data: FitData, target: Target, max_pairs: int) -> SearchOutcom
     for n, tried in _steps(data, max_pairs):
         step_lost = False
         for k, start in enumerate(tried):
-            cand = _evaluate(data, n, start)
+            cand = _evaluate(data, n, start, enforce=False)
+            free_meets = target.met_by(cand.row, data.size)  # the passive fit cannot do better
+            if target.enforce and (k == 0 or free_meets):
+                cand = _made_passive(data, cand)
             if k == 0:
                 found.append(cand)
-            if not target.met_by(cand.row, data.size):
+            if not free_meets:
                 continue
             kept = _accept(data, target, cand)
             if kept is not None:
@@ -292,7 +335,7 @@ def target_search(data: FitData, target: Target, max_pairs: int) -> SearchOutcom
             step_lost = True
         if step_lost:
             lost.append(n)
-    chosen = choose_by_diminishing_returns([c.row for c in found])
+    chosen = _choose(found, choose_by_diminishing_returns)
     unmet = (
         "no order up to max_pairs met the target (the data hold structure a rational "
         f"model does not take up); chose {found[chosen].row.n_pairs} entries, the fewest "
@@ -320,16 +363,17 @@ def _accept(data: FitData, target: Target, cand: Candidate) -> Candidate | None:
         if variant is not cand.model:
             cert = certify(variant)
         model, enf, cert_after = enforce_if_needed(data, variant, cert, target.enforce)
-        if target.enforce and not cert_after.certified:
+        if target.enforce and not cert_after.certified or model.n_pairs > data.max_entries:
             continue
         if not _meets_after(data, target, model, cand.row):
             continue
         row = cand.row
         if variant is not cand.model:  # the table shows the fit that was kept
             rms, mx, chi2, bic, npar = data.metrics(variant)
+            rms_a, mx_a, chi2_a, bic_a, npar_a = data.metrics(model)
             row = OrderRow(
-                row.n_start, variant.n_pairs, npar, rms, mx, chi2, bic, cert.certified,
-                row.start + WIDENED_SUFFIX,
+                row.n_start, model.n_pairs, npar_a, rms_a, mx_a, chi2_a, bic_a, cert.certified,
+                row.start + WIDENED_SUFFIX, rms, _ok(data, model, cert_after),
             )  # fmt: skip
         return Candidate(row, model, cert_after, enf)
     return None

@@ -22,7 +22,6 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.linalg import solve_triangular
-from scipy.optimize import lsq_linear
 
 from .model import PolePairModel, design_matrix, model_from_vector
 
@@ -35,9 +34,21 @@ __all__ = [
     "broaden_above_band",
     "PolishResult",
     "polish_poles",
+    "floor_damping",
+    "EPS_INF_MIN",
 ]
 
-_EPS_INF_FLOOR = 1e-3  # smallest eps_inf the residue solve accepts (eps_inf > 0 for stability)
+#: Smallest eps_inf any residue solve accepts. eps(w -> inf) of a real medium tends to 1 (no
+#: response at infinite frequency); a window's eps_inf holds the oscillators above it, each of
+#: which adds a positive amount, so eps_inf >= 1 is the usual physics choice (eps_inf > 0 is the
+#: minimum for a stable time-domain update; below 1 needs a plasma term the model does not
+#: have). Common practice, no source.
+EPS_INF_MIN = 1.0
+_EPS_INF_FLOOR = EPS_INF_MIN
+#: Smallest damping of a pole as a fraction of the local data spacing: a resonance narrower
+#: than the sampling is not determined by the data (and a sharp pole next to broad ones is
+#: where float64 loses eps2's sign). Our choice, no source.
+MIN_DAMPING_SPACING = 0.5
 _RELAX_FLOOR = 1e-8  # smallest |d~| accepted before the relaxed constraint is replaced [2]
 
 
@@ -242,6 +253,25 @@ def _split_poles(ev: np.ndarray) -> np.ndarray:
     return a[np.argsort(np.abs(a))]
 
 
+def floor_damping(poles, energy_ev) -> np.ndarray:
+    """Poles with damping -Re a raised to at least MIN_DAMPING_SPACING x the local data spacing.
+
+    The spacing is that of the data points next to the pole's resonance |Im a| (clipped to the
+    data band); real poles keep -Re a >= that spacing at the lowest energy. Pole positions
+    (Im a) are kept.
+    """
+    w = np.asarray(energy_ev, float)
+    a = np.array(poles, dtype=complex)
+    if a.size == 0 or w.size < 2:
+        return a
+    dw = np.diff(w)
+    centre = np.clip(np.abs(a.imag), w[0], w[-1])
+    k = np.clip(np.searchsorted(w, centre) - 1, 0, dw.size - 1)
+    floor = MIN_DAMPING_SPACING * dw[k]
+    alpha = np.maximum(-a.real, floor)
+    return -alpha + 1j * a.imag
+
+
 def _qr_solve(a, b):
     """Least squares by thin QR; returns (x, condition estimate max|R_ii| / min|R_ii|)."""
     q, r = np.linalg.qr(a)
@@ -259,10 +289,9 @@ def _solve_residues(poles, conductor, energy_ev, eps, w1, w2):
     cn = np.linalg.norm(a, axis=0)
     cn[cn == 0] = 1.0
     theta = _qr_solve(a / cn, b)[0] / cn
-    if theta[0] <= 0:  # eps_inf must stay positive: bound it
-        lb = np.full(theta.size, -np.inf)
-        lb[0] = _EPS_INF_FLOOR * cn[0]
-        theta = lsq_linear(a / cn, b, bounds=(lb, np.inf)).x / cn
+    if theta[0] < _EPS_INF_FLOOR:  # one bound, convex: the optimum sits on it (active set)
+        rest = _qr_solve(a[:, 1:] / cn[1:], b - _EPS_INF_FLOOR * a[:, 0])[0] / cn[1:]
+        theta = np.concatenate([[_EPS_INF_FLOOR], rest])
     return model_from_vector(theta, poles, conductor)
 
 
@@ -366,7 +395,7 @@ def vector_fit(
             RuntimeWarning,
             stacklevel=2,
         )
-    model = _solve_residues(a_cur, conductor, w, f, w1, w2)
+    model = _solve_residues(floor_damping(a_cur, w), conductor, w, f, w1, w2)
     return VectorFitResult(model, it, float(change), max_cond)
 
 
@@ -494,9 +523,9 @@ def polish_poles(
     per pair a = -exp(u) + i beta, per real pole a = -exp(u), so Re a < 0 holds by
     construction; alpha = exp(u) and beta are kept in [1e-3 w_min, 1e3 w_max] (a pair stays a
     pair, a real pole does not merge with the conductor pole, nothing runs off to infinity).
-    The conductor pole stays at 0. When the linear solution has eps_inf below 1e-3, eps_inf is
-    fixed at 1e-3 and the projection is onto the remaining columns (an active set, so the
-    stability condition eps_inf > 0 holds at every step). The result is re-solved as in
+    The conductor pole stays at 0. When the linear solution has eps_inf below
+    :data:`EPS_INF_MIN`, eps_inf is fixed there and the projection is onto the remaining
+    columns (an active set, so the bound eps_inf >= EPS_INF_MIN holds at every step). The result is re-solved as in
     :func:`vector_fit` and returned only when it lowers the weighted misfit; a model with a
     pole outside the box is returned unchanged.
     Vector fitting converges to a fixed point of its linearised problem, not to a minimum of
@@ -568,7 +597,7 @@ def polish_poles(
     )
     if not np.all(np.isfinite(sol.x)):
         return PolishResult(model, rss0, rss0, int(sol.nfev))
-    new = _solve_residues(poles_of(sol.x), cond, w, f, w1, w2)
+    new = _solve_residues(floor_damping(poles_of(sol.x), w), cond, w, f, w1, w2)
     rss1 = _rss(new, w, f, w1, w2)
     if not (rss1 < rss0) or not new.stable:
         return PolishResult(model, rss0, rss0, int(sol.nfev))
