@@ -10,6 +10,7 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -146,3 +147,98 @@ def test_valid_tables_always_read(tmp_path_factory, energies, k_sign):
     assert ds is not None and len(ds) == len(set(energies))
     assert ds.converted == (k_sign < 0)
     assert np.all(ds.eps.imag > 0)
+
+
+# ------------------------------------------------------------------------------------------
+# decimal commas and unit-implausible axes: zero silent misreads (issue 15 item 4)
+# ------------------------------------------------------------------------------------------
+HC_EV_NM = 1239.841984  # CODATA 2018 (Tiesinga et al., Rev. Mod. Phys. 93, 025010, 2021)
+_TRUE_UNITS = {  # unit -> (header, range of values, to eV)
+    "wavelength_nm": ("wavelength_nm", (200.0, 2000.0), lambda x: HC_EV_NM / x),
+    "wavelength_um": ("wavelength (um)", (0.2, 5.0), lambda x: HC_EV_NM / (1e3 * x)),
+    "energy_ev": ("energy (eV)", (0.5, 10.0), lambda x: x),
+}
+
+
+@st.composite
+def marked_tables(draw):
+    """A true n,k table written with a decimal mark, a delimiter and maybe a wrong unit."""
+    unit = draw(st.sampled_from(sorted(_TRUE_UNITS)))
+    header, (lo, hi), _ = _TRUE_UNITS[unit]
+    # the issue's unit slip: micrometre values under a nm header
+    label = "wavelength_nm" if unit == "wavelength_um" and draw(st.booleans()) else unit
+    if label != unit:
+        header = "wavelength (nm)"
+    n_pts = draw(st.integers(3, 10))
+    dec = draw(st.integers(0, 3))
+    xs = sorted(
+        set(
+            round(v, dec) for v in draw(st.lists(st.floats(lo, hi), min_size=n_pts, max_size=n_pts))
+        )
+    )
+    n = [
+        round(v, draw(st.integers(0, 3)))
+        for v in draw(st.lists(st.floats(1.0, 3.0), min_size=len(xs), max_size=len(xs)))
+    ]
+    k = [
+        round(v, draw(st.integers(0, 3)))
+        for v in draw(st.lists(st.floats(0.0, 1.0), min_size=len(xs), max_size=len(xs)))
+    ]
+    mark = draw(st.sampled_from([".", ","]))
+    delim = draw(st.sampled_from([",", ";", "\t", " "]))
+    with_header = draw(st.booleans())
+
+    def fmt(v):
+        text = repr(float(v)) if draw(st.booleans()) else f"{v:.6f}"
+        return text.replace(".", mark)
+
+    lines = [delim.join(fmt(v) for v in row) for row in zip(xs, n, k)]
+    if with_header:
+        lines.insert(0, delim.join([header, "n", "k"]))
+    return "\n".join(lines) + "\n", unit, label, with_header, np.array(xs), np.array(n), np.array(k)
+
+
+def _no_silent_misread(tmp_path_factory, case):
+    text, unit, label, with_header, xs, n, k = case
+    p = tmp_path_factory.getbasetemp() / "marked.txt"  # one file, rewritten: fast
+    p.write_text(text, encoding="utf-8")
+    kwargs = {} if with_header else {"axis": label, "quantity": "nk"}
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            ds = read_table(p, **kwargs)
+        except InputError as err:
+            assert "\n" not in str(err) and str(p) in str(err)
+            return
+    if len(set(xs.tolist())) < 3:
+        return  # too few distinct points should have been refused; covered elsewhere
+    true_e = _TRUE_UNITS[unit][2](xs)
+    order = np.argsort(true_e)
+    read_e = _TRUE_UNITS["wavelength_nm"][2](xs) if label != unit else true_e
+    if label != unit:
+        # read on the stated (wrong) unit: it must say so, in a note and a warning
+        assert any(s.startswith("plausibility:") for s in ds.provenance.notes), text
+        assert any("plausibility" in str(w.message) for w in caught)
+        np.testing.assert_allclose(ds.energy_ev, np.sort(read_e), rtol=1e-12)
+        return
+    np.testing.assert_allclose(ds.energy_ev, true_e[order], rtol=1e-12, err_msg=text)
+    np.testing.assert_allclose(
+        ds.eps, ((n + 1j * k) ** 2)[order], rtol=1e-12, atol=1e-15, err_msg=text
+    )
+
+
+@SETTINGS
+@given(case=marked_tables())
+def test_decimal_marks_and_units_never_misread(tmp_path_factory, case):
+    _no_silent_misread(tmp_path_factory, case)
+
+
+@pytest.mark.slow
+@settings(
+    max_examples=10_000,
+    deadline=None,
+    suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow],
+)
+@given(case=marked_tables())
+def test_decimal_marks_and_units_never_misread_10000(tmp_path_factory, case):
+    _no_silent_misread(tmp_path_factory, case)

@@ -218,6 +218,8 @@ def _cells_with_points(table: TableLayout, shown: str):
         valid = (2, 3) if lay.k_implied else (3, 5)
         refuse_ambiguous_commas(rows, lay.ncols, valid, shown)
     used = [c for c in range(lay.ncols) if c not in lay.ignored]
+    if table.delim == "," or not any("," in body for _, body in table.data):
+        return rows, []  # no comma in any data line: nothing to decide (cheap on 1e6 rows)
     if decimal_mark(rows, used, table.delim, shown) == ".":
         return rows, []
     note = f"decimal mark: comma ({delim_name(table.delim)}-separated table)"
@@ -235,7 +237,9 @@ def _check_options(axis, quantity, convention) -> tuple[str | None, str | None]:
     if quantity is not None:
         q = str(quantity).strip().lower()
         if q not in QUANTITIES:
-            raise InputError(f"unknown quantity {quantity!r}; expected nk or eps (or n for a table of n only)")
+            raise InputError(
+                f"unknown quantity {quantity!r}; expected nk or eps (or n for a table of n only)"
+            )
     # the vocabulary of kkcheck.options, with the reader's own (tested) wording
     if convention not in CONVENTIONS:
         raise InputError(f"unknown convention {convention!r}; expected {', '.join(CONVENTIONS)}")
