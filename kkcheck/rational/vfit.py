@@ -525,9 +525,9 @@ def polish_poles(
     pair, a real pole does not merge with the conductor pole, nothing runs off to infinity).
     The conductor pole stays at 0. When the linear solution has eps_inf below
     :data:`EPS_INF_MIN`, eps_inf is fixed there and the projection is onto the remaining
-    columns (an active set, so the bound eps_inf >= EPS_INF_MIN holds at every step). The result is re-solved as in
-    :func:`vector_fit` and returned only when it lowers the weighted misfit; a model with a
-    pole outside the box is returned unchanged.
+    columns (an active set, so the bound eps_inf >= EPS_INF_MIN holds at every step). The
+    result is re-solved as in :func:`vector_fit` and returned only when it lowers the
+    weighted misfit; a model with a pole outside the box is returned unchanged.
     Vector fitting converges to a fixed point of its linearised problem, not to a minimum of
     the misfit, and with noisy data that fixed point can lie well above the minimum the same
     number of poles allows; the polish moves it to the nearby minimum.
