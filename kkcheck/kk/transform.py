@@ -36,6 +36,7 @@ __all__ = [
     "eps1_to_eps2",
     "k_to_n_minus_1",
     "n_minus_1_to_k",
+    "phase_of_log_amplitude",
     "dc_sigma_from_low_energy",
 ]
 
@@ -246,6 +247,46 @@ def n_minus_1_to_k(energy_ev, n_minus_1, at_ev=None, *, method="auto") -> np.nda
     conductor (k grows only like w^(-1/2)), so there is no DC term. See :func:`eps1_to_eps2`.
     """
     return eps1_to_eps2(energy_ev, n_minus_1, at_ev, method=method)
+
+
+def phase_of_log_amplitude(energy_ev, log_amplitude, at_ev=None, *, method="auto") -> np.ndarray:
+    """KK phase of a piecewise-linear log-amplitude held constant beyond both window ends.
+
+    Parameters
+    ----------
+    energy_ev : array_like, shape (N,)
+        Photon energies [eV], strictly increasing, > 0.
+    log_amplitude : array_like, shape (N,)
+        u = ln|r| at ``energy_ev`` (for reflectance, u = ln(R)/2).
+    at_ev : array_like, optional
+        Where to evaluate [eV] (default: ``energy_ev``).
+    method : {"auto", "exact", "fast"}
+        As in :func:`eps2_to_eps1`.
+
+    Returns
+    -------
+    numpy.ndarray
+        theta(w) = -(2 w / pi) P int_0^inf u(w') / (w'^2 - w^2) dw' [rad], with u(w') = u_0
+        below the window and u_M above it. Finite everywhere, the window ends included.
+
+    Notes
+    -----
+    This is :func:`eps1_to_eps2` of u without its two end-step terms: a constant c on
+    [0, x_0] contributes -(c/pi) ln|(x_0 - w)/(x_0 + w)|, which is exactly minus the end
+    term of the PL window at x_0 (and likewise at x_M), so with constant continuations only
+    the kink sum (1/pi) sum_j dm_j [(w + x_j) ln|w + x_j| + (w - x_j) ln|w - x_j|] remains.
+    Other continuations are added as the phase of their deviation from these constants
+    (:mod:`kkcheck.reflectance`).
+
+    References
+    ----------
+    .. [1] D. M. Roessler, Br. J. Appl. Phys. 16, 1119 (1965) (the phase integral of ln R,
+       from memory); see docs/references.md [Roessler1965] and [ReflectancePhase].
+    """
+    x, y = check_axis(energy_ev, log_amplitude, "log-amplitude")
+    w = check_targets(at_ev, x)
+    c = _slope_changes(x, y)
+    return _kink_sum(x, c, w, +1, method) / np.pi
 
 
 def dc_sigma_from_low_energy(energy_ev, eps2, n_points: int = 10) -> float:
