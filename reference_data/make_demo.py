@@ -105,7 +105,33 @@ def make(out: Path = OUT) -> dict[str, Path]:
         for a, b, c in zip(nu, n3, k3):
             f.write(f"{a:.0f}; {b:.3f}; {-c:.4f}\n")
     paths["ir"] = p
+    paths["ftir"] = _ftir_reflectance(out)
     return paths
+
+
+def _ftir_reflectance(out: Path) -> Path:
+    """4. FTIR normal-incidence reflectance of a thick ZX-7 sample, in percent.
+
+    7200-400 cm^-1 every 4 cm^-1 (0.050-0.893 eV: the phonon at 0.118 eV inside, an overlap
+    of 0.564-0.893 eV with the near-infrared ellipsometry), R = |(N - 1)/(N + 1)|^2 of the
+    true eps, noise 0.05 % (absolute, in percent units: 5e-4 as a fraction) and a 0.4 %
+    relative gain error of the spectrometer (R x 1.004). Its own generator (seed SEED + 4) so
+    the other three files stay as they were.
+    """
+    rng = np.random.default_rng(SEED + 4)
+    nu = np.arange(7200.0, 400.0 - 1e-9, -4.0)
+    big_n = np.sqrt(true_eps(nu * EV_PER_INV_CM))
+    r = np.abs((big_n - 1) / (big_n + 1)) ** 2 * 1.004 + rng.normal(0, 5e-4, nu.size)
+    p = out / "ftir_reflectance.csv"
+    with open(p, "w", newline="\n") as f:
+        f.write(_header([
+            "ZX-7 (fictional), FTIR normal-incidence reflectance of a thick polished sample",
+            "spectrometer output: wavenumber in cm-1, reflectance in percent",
+        ]))
+        f.write("Wavenumber (cm-1),R (%)\n")
+        for a, b in zip(nu, r):
+            f.write(f"{a:.0f},{100 * b:.3f}\n")
+    return p
 
 
 if __name__ == "__main__":
