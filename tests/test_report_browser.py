@@ -257,3 +257,86 @@ def test_report_renders_in_headless_chromium(browser, report, tmp_path):
     assert share((0xFD, 0xEC, 0xEE)) > 0.005
     assert share((0xB0, 0x00, 0x20), tol=0.06) > 1e-4
     assert img.std() > 0.05  # not a blank page
+
+
+# ------------------------------------------------------------- layout at desktop and phone width
+
+_LAYOUT_PROBE = """<script>
+window.addEventListener('load', function () {
+  var page = document.documentElement;
+  var out = {page_overflow: page.scrollWidth - window.innerWidth, tables: []};
+  document.querySelectorAll('table').forEach(function (t, i) {
+    var box = t.parentElement;
+    var cs = getComputedStyle(box);
+    var scrolls = cs.overflowX === 'auto' || cs.overflowX === 'scroll';
+    out.tables.push({
+      i: i,
+      head: (t.querySelector('th') || {}).textContent || '',
+      table_w: t.scrollWidth,
+      box_w: box.clientWidth,
+      box_right: box.getBoundingClientRect().right,
+      scrolls: scrolls,
+    });
+  });
+  out.width = window.innerWidth;
+  if (window.parent !== window) { window.parent.postMessage(JSON.stringify(out), '*'); return; }
+  var pre = document.createElement('pre');
+  pre.id = 'kklayout';
+  pre.textContent = JSON.stringify(out);
+  document.body.appendChild(pre);
+});
+</script>"""
+
+# Headless Chromium keeps its window at least 500 px wide; a narrower viewport is an iframe of
+# that width, whose page posts its measurements to this wrapper.
+_NARROW_WRAPPER = """<!DOCTYPE html><html><head><meta charset="utf-8"></head><body style="margin:0">
+<pre id="kklayout"></pre>
+<script>
+window.addEventListener('message', function (e) {
+  document.getElementById('kklayout').textContent = e.data;
+});
+</script>
+<iframe src="{src}" width="{width}" height="900" style="border:0"></iframe>
+</body></html>"""
+
+
+def _layout(browser: str, page: Path, width: int, tmp_path: Path) -> dict:
+    probed = page.with_name(f"probed_{width}.html")
+    probed.write_text(
+        page.read_text(encoding="utf-8").replace("<head>", "<head>" + _LAYOUT_PROBE, 1),
+        encoding="utf-8",
+    )
+    target = probed
+    if width < 500:
+        target = page.with_name(f"narrow_{width}.html")
+        wrapper = _NARROW_WRAPPER.replace("{src}", probed.name).replace("{width}", str(width))
+        target.write_text(wrapper, encoding="utf-8")
+    res = _run(
+        browser,
+        ["--window-size=1400,900", "--virtual-time-budget=5000", "--dump-dom", target.as_uri()],
+        tmp_path / f"profile_{width}",
+    )
+    assert res.returncode == 0, res.stderr[-2000:]
+    m = re.search(r'<pre id="kklayout">(.+?)</pre>', res.stdout, re.S)
+    assert m, "the layout probe did not report"
+    lay = json.loads(_html.unescape(m.group(1)))
+    assert lay["width"] == width, lay["width"]  # the viewport measured is the one asked for
+    return lay
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("width", [1400, 420])
+def test_report_tables_fit_or_scroll_in_their_own_box(browser, tmp_path, width):
+    # issue 16: at 1400 px the Sources table hid its scale/offset columns, at 420 px most
+    # tables were clipped. The committed demo report (reports/demo) has every table kind.
+    src = Path(__file__).resolve().parent.parent / "reports" / "demo"
+    page = tmp_path / "demo" / "report.html"
+    shutil.copytree(src, page.parent)
+    lay = _layout(browser, page, width, tmp_path)
+    assert lay["tables"], "no table found"
+    assert lay["page_overflow"] <= 1, lay  # the page itself never scrolls sideways
+    for t in lay["tables"]:
+        # each table either fits its box or its own box scrolls (no column cut off unseen),
+        # and the box stays inside the window
+        assert t["table_w"] <= t["box_w"] + 1 or t["scrolls"], t
+        assert t["box_right"] <= lay["width"] + 1, t
