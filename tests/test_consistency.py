@@ -420,8 +420,11 @@ def test_to_dict_is_the_summary_block():
     r = kk_test(sp, anchors_ev=[2.0])
     d = r.to_dict()
     assert list(d) == [
-        "method", "anchors_ev", "rms", "max", "noise", "chi2_dof", "verdict", "regions", "notes",
+        "method", "anchors_ev", "rms", "max", "noise", "chi2_dof", "verdict", "verdict_text",
+        "tolerance_percent", "deviation_rms_percent", "deviation_max_percent",
+        "deviation_max_ev", "regions", "regions_within_tolerance", "notes",
     ]  # fmt: skip
+    assert d["verdict_text"].startswith("inconsistent: ") and d["tolerance_percent"] == 1.0
     assert d["method"] == "kk-basis-fit" and d["anchors_ev"] == [2.0]
     assert (d["rms"], d["max"], d["noise"], d["chi2_dof"]) == (r.rms, r.max, r.noise, r.chi2_dof)
     assert d["verdict"] == "inconsistent" and d["notes"] == list(r.notes)
@@ -432,8 +435,14 @@ def test_to_dict_is_the_summary_block():
             "component": g.component,
             "severity": g.severity,
             "label": g.label,
+            "deviation_percent": 100 * g.deviation_rel,
+            "dn_max": g.dn_max,
+            "dk_max": g.dk_max,
+            "exceeds_tolerance": True,
+            "origin": g.origin,
         }
         for g in r.regions
     ]
+    assert all(g["deviation_percent"] > 1.0 for g in d["regions"])
     json.dumps(d, allow_nan=False)
     assert dataclasses.replace(r, rms=float("nan")).to_dict()["rms"] is None

@@ -20,13 +20,26 @@ Verdict rule (documented in :class:`KKTestOptions`; the same for every material)
    SPIKE or STEP are skipped), and every run of at least ``min_points`` consecutive points where
    it exceeds ``z_threshold`` is a region (:mod:`kkcheck.kk.regions`; for pure Gaussian noise,
    a 5-point mean of z^2 above 9 has probability ~1e-8 per point);
-3. ``"inconsistent"`` when any region exists or chi2/dof > ``chi2_threshold`` (3: allows the
-   noise estimate to be ~1.7x too small before crying wolf); else ``"consistent"``;
-4. when regions were found, the model is refitted without the points of the most severe
-   ones (severity >= half the largest; skipped if they hold more than half of the points),
-   and the residuals, regions and model reported are those of the refit: a fault no longer
-   pulls the model towards itself, so it shows at its full size and the moderate residuals
-   it induced in its neighbours disappear.
+3. when regions were found, the model is refitted without the points of the most severe
+   ones (severity >= half the largest; a region holding more than ``max_region_fraction``
+   of the points is first shrunk to its core, the run around its peak above half the peak
+   running rms), up to ``max_refits`` times, each refit leaving out what the previous ones
+   found (skipped if that would leave out more than half of the points); the residuals,
+   regions and model reported are those of the last refit: a fault no longer pulls the
+   model towards itself, so it shows at its full size and the moderate residuals it induced
+   in its neighbours disappear. A region that still spreads over more than
+   ``max_region_fraction`` of the points is reported as its core, with a note naming the
+   whole span (a single local fault never yields a window-wide region);
+4. every region gets its size in physical units (:mod:`kkcheck.kk.verdict`): the largest
+   relative excess deviation of its component, |data - model| beyond the noise divided by
+   max(|eps|, 1), and the largest |dn|, |dk|. Only regions larger than ``tolerance``
+   (default 1 %, justified in :mod:`kkcheck.kk.verdict`) count; the others are reported as
+   ``regions_within_tolerance``;
+5. ``"inconsistent"`` when a region exceeds the tolerance, or when chi2/dof >
+   ``chi2_threshold`` (3: allows the noise estimate to be ~1.7x too small before crying
+   wolf) and the worst part of the residuals (a region of origin "worst_part", with a note
+   saying the verdict comes from the overall misfit) exceeds the tolerance; else
+   ``"consistent"``, and ``verdict_text`` says "consistent within X %".
 
 What no finite window can reveal: a constant offset of eps1 (absorbed by eps_inf), and
 smooth, nearly even distortions of eps1 (a + b w^2 + c / w^2) that absorption outside the
@@ -60,6 +73,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
@@ -70,7 +84,19 @@ from ..noise import MIN_POINTS, NOISE_FLOOR_ABS, NOISE_FLOOR_REL, spectrum_noise
 from ..options import DOWNWEIGHT_FACTOR
 from ..spectrum import Flag, Spectrum
 from .basisfit import KKBasisModel, choose_nodes, fit_kk_basis
+from .binning import bin_means, bin_spectrum
 from .regions import Region, find_regions
+from .verdict import (
+    DEFAULT_TOLERANCE,
+    core_of,
+    deviation_profile,
+    minor_note,
+    misfit_note,
+    sized_region,
+    verdict_text,
+    window_deviation,
+    worst_part,
+)
 
 __all__ = ["KKTestOptions", "Region", "KKTestResult", "kk_test", "find_regions", "NOTE_CODES"]
 
@@ -87,6 +113,10 @@ NOTE_CODES = {
     "refit_without_regions": "regions, residuals and model are from the refit without them",
     "no_refit": "inconsistent over most of the window: no refit was made",
     "chi2_high": "chi2/dof above the threshold without any region",
+    "misfit_only": "inconsistent from the overall misfit alone; the worst energies are named",
+    "region_core": "a region spread over much of the window: its worst part is reported",
+    "within_tolerance": "significant deviations smaller than the tolerance (not counted)",
+    "binned": "more points than the dense fit takes: binned first (kkcheck.kk.binning)",
 }
 
 
@@ -129,6 +159,18 @@ class KKTestOptions:
     rel_floor, abs_floor : float
         Noise floor sigma >= max(rel_floor |eps|, abs_floor) (:func:`spectrum_noise`; defaults
         :data:`kkcheck.noise.NOISE_FLOOR_REL` and :data:`kkcheck.noise.NOISE_FLOOR_ABS`).
+    tolerance : float
+        Smallest relative deviation of eps, as a fraction of max(|eps|, 1), that makes a
+        significant region count (default :data:`kkcheck.kk.verdict.DEFAULT_TOLERANCE`,
+        0.01; 0 counts every significant region).
+    max_refits : int
+        Most refits of step 3 of the rule (each leaves out what the previous found).
+    max_region_fraction : float
+        A region holding more than this fraction of the counted points is shrunk to its core.
+    max_dense_points : int
+        Most points the dense fit sees; a larger spectrum is binned first
+        (:func:`kkcheck.kk.binning.bin_spectrum`, a hard cap) and the result is on the
+        binned axis, with a note.
     """
 
     z_threshold: float = 3.0
@@ -149,6 +191,10 @@ class KKTestOptions:
     max_excluded_fraction: float = 0.5
     rel_floor: float = NOISE_FLOOR_REL
     abs_floor: float = NOISE_FLOOR_ABS
+    tolerance: float = DEFAULT_TOLERANCE
+    max_refits: int = 3
+    max_region_fraction: float = 0.3
+    max_dense_points: int = 3000
 
 
 @dataclass(frozen=True)
@@ -190,6 +236,18 @@ class KKTestResult:
     note_codes : tuple of str
         One short, stable code per note, same length and order as ``notes`` (see
         :data:`NOTE_CODES`), for readers that act on a note without parsing its text.
+    tolerance : float
+        Tolerance of the verdict [fraction of max(|eps|, 1)].
+    deviation_rms_rel, deviation_max_rel : float
+        rms and largest relative excess deviation of eps over the counted points of the
+        whole window [fraction of max(|eps|, 1)] (:func:`kkcheck.kk.verdict.deviation_profile`).
+    deviation_max_ev : float
+        Energy of the largest deviation [eV].
+    regions_within_tolerance : tuple of Region
+        Significant regions whose size is below ``tolerance`` (they do not count).
+    verdict_text : str
+        The verdict in one phrase with its size, e.g. "consistent within 1 %" or
+        "inconsistent: 3.2 % of |eps| in eps2 at 1.52-1.81 eV (25 sigma)".
     """
 
     method: str
@@ -210,6 +268,12 @@ class KKTestResult:
     notes: tuple[str, ...]
     model: KKBasisModel
     note_codes: tuple[str, ...] = ()
+    tolerance: float = DEFAULT_TOLERANCE
+    deviation_rms_rel: float = float("nan")
+    deviation_max_rel: float = float("nan")
+    deviation_max_ev: float = float("nan")
+    regions_within_tolerance: tuple[Region, ...] = ()
+    verdict_text: str = ""
 
     def __post_init__(self):
         if len(self.note_codes) != len(self.notes):
@@ -218,10 +282,11 @@ class KKTestResult:
     def to_dict(self) -> dict:
         """The ``kk`` block of summary.json, without the keys only the pipeline knows.
 
-        Keys: method, anchors_ev, rms, max, noise, chi2_dof, verdict, regions (each
-        :meth:`Region.to_dict`) and notes; floats are JSON-safe
-        (:func:`kkcheck.jsonsafe.json_float`). The pipeline adds range_ev, points_analysed
-        and its binning note.
+        Keys: method, anchors_ev, rms, max, noise, chi2_dof, verdict, verdict_text,
+        tolerance_percent, deviation_rms_percent, deviation_max_percent, deviation_max_ev,
+        regions and regions_within_tolerance (each :meth:`Region.to_dict`) and notes; floats
+        are JSON-safe (:func:`kkcheck.jsonsafe.json_float`). The pipeline adds range_ev,
+        points_analysed and its binning note.
         """
         return {
             "method": self.method,
@@ -231,7 +296,13 @@ class KKTestResult:
             "noise": json_float(self.noise),
             "chi2_dof": json_float(self.chi2_dof),
             "verdict": self.verdict,
+            "verdict_text": self.verdict_text,
+            "tolerance_percent": json_float(100.0 * self.tolerance),
+            "deviation_rms_percent": json_float(100.0 * self.deviation_rms_rel),
+            "deviation_max_percent": json_float(100.0 * self.deviation_max_rel),
+            "deviation_max_ev": json_float(self.deviation_max_ev),
             "regions": [r.to_dict() for r in self.regions],
+            "regions_within_tolerance": [r.to_dict() for r in self.regions_within_tolerance],
             "notes": list(self.notes),
         }
 
@@ -282,8 +353,10 @@ def kk_test(
        [Kuzmenko2005].
     """
     opt = options or KKTestOptions()
-    e = spectrum.energy_ev
     wt = _checked_weights(spectrum, weights)
+    if len(spectrum) > opt.max_dense_points:
+        return _binned_test(spectrum, anchors_ev, wt, opt)
+    e = spectrum.energy_ev
     noise = spectrum_noise(spectrum, rel_floor=opt.rel_floor, abs_floor=opt.abs_floor)
     s1, s2 = noise.sigma_eps1, noise.sigma_eps2
     bad = (spectrum.flags & (int(Flag.SPIKE) | int(Flag.STEP))) != 0
@@ -311,9 +384,37 @@ def kk_test(
     zc = np.concatenate([found.z1[counted], found.z2[counted]])
     chi2_dof = float(zc @ zc) / max(1.0, zc.size - fit.n_effective)
     if found.regions and opt.refit_regions:
-        found, note = _refit_without_regions(spectrum, found, u1, u2, wt, counted, opt)
-        notes.extend([note] if note else [])
+        refit, more = _refit_without_regions(spectrum, found, u1, u2, wt, counted, opt)
+        # a refit is reported only when it shows a fault larger than the tolerance; else
+        # the fit to all points is the better model of data that are consistent within it
+        if _any_beyond_tolerance(spectrum, refit, (s1, s2), counted, opt):
+            found = refit
+            notes.extend(more)
+    found, more = _cores_of_wide_regions(spectrum, found, counted, opt)
+    notes.extend(more)
     return _result(spectrum, found, counted, (s1, s2), chi2_dof, anchors, notes, opt)
+
+
+def _binned_test(spectrum: Spectrum, anchors_ev, wt, opt: KKTestOptions) -> KKTestResult:
+    """The test on the spectrum binned to ``opt.max_dense_points`` (the dense-fit cap).
+
+    The noise of the full spectrum is estimated first so that the binning knows which
+    points are straight within it; weights of a bin are the mean of its points' weights.
+    """
+    noise = spectrum_noise(spectrum, rel_floor=opt.rel_floor, abs_floor=opt.abs_floor)
+    full = dataclasses.replace(spectrum, sigma_eps1=noise.sigma_eps1, sigma_eps2=noise.sigma_eps2)
+    binned, record = bin_spectrum(full, opt.max_dense_points)
+    w_binned = None
+    if np.any(wt != 1.0):
+        # the mean weight of each bin: bins are runs of one source, found by their mean energy
+        w_binned = bin_means(full, binned, wt)
+    res = kk_test(binned, anchors_ev=anchors_ev, weights=w_binned, options=opt)
+    note = record.note() or ""
+    return dataclasses.replace(
+        res,
+        notes=(*res.notes, f"the dense fit takes at most {opt.max_dense_points} points: {note}"),
+        note_codes=(*res.note_codes, "binned"),
+    )
 
 
 @dataclass(frozen=True)
@@ -422,47 +523,117 @@ def _evaluate(spectrum, model: KKBasisModel, u1, u2, counted, opt: KKTestOptions
 
 
 def _refit_without_regions(spectrum, first: _Pass, u1, u2, wt, counted, opt: KKTestOptions):
-    """Step 4 of the verdict rule: the fit without the most severe regions' points.
+    """Step 3 of the verdict rule: refits without the most severe regions' points.
 
     A fault pulls the fit towards itself and spreads residuals to its neighbours; residuals
-    and regions are then measured against the model of the remaining, consistent data.
-    Returns the pass to report and its (code, text) note, or None.
+    and regions are then measured against the model of the remaining, consistent data. Each
+    refit leaves out, in addition, the severe regions of the previous one (wide ones shrunk
+    to their core), warm-started from the previous solution. Returns the pass to report and
+    its (code, text) notes.
     """
     e = spectrum.energy_ev
     m = len(spectrum)
-    inside = np.zeros(m, bool)
-    top = max(g.severity for g in first.regions)
-    for g in first.regions:
-        if g.severity >= opt.refit_severity_ratio * top:
-            inside |= (e >= g.from_ev) & (e <= g.to_ev)
-    w2 = np.where(inside, 0.0, wt)
-    if np.count_nonzero(w2) < max(MIN_POINTS, (1 - opt.max_excluded_fraction) * m):
-        text = "inconsistent over most of the window: no refit without the regions was made"
-        return first, ("no_refit", text)
-    fit2 = first.model.refit(e, spectrum.eps, u1, u2, w2, smoothing=opt.smoothing)
-    second = _evaluate(spectrum, fit2.model, u1, u2, counted, opt)
-    if not second.regions:
-        return first, None
+    excluded = np.zeros(m, bool)
+    current, made, too_many = first, 0, False
+    for _ in range(max(0, opt.max_refits)):
+        trial = excluded | _severe_points(e, current, counted, opt)
+        if not current.regions or not np.any(trial & ~excluded):
+            break
+        w2 = np.where(trial, 0.0, wt)
+        if np.count_nonzero(w2) < max(MIN_POINTS, (1 - opt.max_excluded_fraction) * m):
+            too_many = True
+            break
+        fit2 = current.model.refit(
+            e, spectrum.eps, u1, u2, w2, smoothing=opt.smoothing, warm_start=True
+        )
+        second = _evaluate(spectrum, fit2.model, u1, u2, counted, opt)
+        if not second.regions:
+            break
+        current, excluded, made = second, trial, made + 1
+    if made == 0:
+        if too_many:
+            text = "inconsistent over most of the window: no refit without the regions was made"
+            return first, [("no_refit", text)]
+        return first, []
     text = (
-        "regions, residuals and model are from a refit without the points first "
+        f"regions, residuals and model are from a refit ({made} in all) without the points "
         "found inconsistent; chi2/dof is of the fit to all points"
     )
-    return second, ("refit_without_regions", text)
+    return current, [("refit_without_regions", text)]
+
+
+def _any_beyond_tolerance(spectrum, found: _Pass, sigmas, counted, opt: KKTestOptions) -> bool:
+    """True when a region of ``found`` is larger than the tolerance (step 4 of the rule)."""
+    dev = deviation_profile(spectrum.eps, found.eps, *sigmas, counted, opt.run_width)
+    e = spectrum.energy_ev
+    return any(sized_region(g, e, dev, opt.tolerance).exceeds_tolerance for g in found.regions)
+
+
+def _severe_points(e, found: _Pass, counted, opt: KKTestOptions) -> np.ndarray:
+    """Points of the regions with severity >= ``refit_severity_ratio`` x the largest, each
+    wide region (more than ``max_region_fraction`` of the counted points) shrunk to its core."""
+    inside = np.zeros(e.size, bool)
+    if not found.regions:
+        return inside
+    top = max(g.severity for g in found.regions)
+    for g in found.regions:
+        if g.severity >= opt.refit_severity_ratio * top:
+            g = _core_if_wide(g, e, found, counted, opt)
+            inside |= (e >= g.from_ev) & (e <= g.to_ev)
+    return inside
+
+
+def _core_if_wide(g: Region, e, found: _Pass, counted, opt: KKTestOptions) -> Region:
+    """``g``, or its core (:func:`kkcheck.kk.verdict.core_of`) when it is wide."""
+    n_in = np.count_nonzero(counted & (e >= g.from_ev) & (e <= g.to_ev))
+    if n_in <= opt.max_region_fraction * max(1, np.count_nonzero(counted)):
+        return g
+    z = found.z1 if g.component == "eps1" else found.z2
+    return core_of(g, e, z, counted, opt.run_width, opt.z_threshold)
+
+
+def _cores_of_wide_regions(spectrum, found: _Pass, counted, opt: KKTestOptions):
+    """Wide regions replaced by their core, with a note naming each whole span."""
+    e = spectrum.energy_ev
+    out, notes = [], []
+    for g in found.regions:
+        c = _core_if_wide(g, e, found, counted, opt)
+        if c is not g:
+            notes.append(
+                (
+                    "region_core",
+                    f"{g.component} deviates beyond the noise over {g.from_ev:.4g}-"
+                    f"{g.to_ev:.4g} eV; the worst part, {c.from_ev:.4g}-{c.to_ev:.4g} eV, is "
+                    "reported as the region",
+                )
+            )
+        out.append(c)
+    return dataclasses.replace(found, regions=out), notes
 
 
 def _result(spectrum, found: _Pass, counted, sigmas, chi2_dof, anchors, notes, opt):
-    """The verdict (step 3 of the rule) and the result record."""
+    """The verdict (steps 4 and 5 of the rule) and the result record."""
     s1, s2 = sigmas
+    e = spectrum.energy_ev
     zc = np.concatenate([found.z1[counted], found.z2[counted]])
     n_res = zc.size
-    regions = found.regions
-    verdict = "inconsistent" if regions or chi2_dof > opt.chi2_threshold else "consistent"
+    dev = deviation_profile(spectrum.eps, found.eps, s1, s2, counted, opt.run_width)
+    sized = [sized_region(g, e, dev, opt.tolerance) for g in found.regions]
+    regions = [g for g in sized if g.exceeds_tolerance]
+    minor = [g for g in sized if not g.exceeds_tolerance]
+    if minor:
+        notes = [*notes, ("within_tolerance", minor_note(minor, opt.tolerance))]
     if chi2_dof > opt.chi2_threshold and not regions:
-        text = (
-            f"chi2/dof = {chi2_dof:.3g} above {opt.chi2_threshold}: inconsistent everywhere or "
-            "noise underestimated"
-        )
-        notes = [*notes, ("chi2_high", text)]
+        worst = worst_part(e, found.z1, found.z2, counted, opt.run_width, opt.strong_severity)
+        worst = sized_region(worst, e, dev, opt.tolerance)
+        notes = [
+            *notes,
+            misfit_note(chi2_dof, worst, bool(sized), opt.chi2_threshold, opt.tolerance),
+        ]
+        if worst.exceeds_tolerance:
+            regions = [worst]
+    rms_rel, max_rel, max_ev, _ = window_deviation(e, dev, counted)
+    verdict = "inconsistent" if regions else "consistent"
     return KKTestResult(
         method=METHOD,
         energy_ev=np.array(spectrum.energy_ev),
@@ -482,4 +653,10 @@ def _result(spectrum, found: _Pass, counted, sigmas, chi2_dof, anchors, notes, o
         notes=tuple(text for _, text in notes),
         model=found.model,
         note_codes=tuple(code for code, _ in notes),
+        tolerance=float(opt.tolerance),
+        deviation_rms_rel=rms_rel,
+        deviation_max_rel=max_rel,
+        deviation_max_ev=max_ev,
+        regions_within_tolerance=tuple(minor),
+        verdict_text=verdict_text(regions, minor, max_rel, opt.tolerance),
     )

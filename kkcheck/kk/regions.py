@@ -37,6 +37,19 @@ class Region:
         Peak |normalised residual| inside the region [dimensionless, in units of sigma].
     label : str
         ``"moderate"`` or ``"strong"`` (severity >= ``KKTestOptions.strong_severity``).
+    deviation_rel : float
+        Size of the inconsistency: the largest relative excess deviation of ``component``
+        inside the region [fraction of max(|eps|, 1)] (:mod:`kkcheck.kk.verdict`); NaN until
+        the KK test sizes the region.
+    dn_max, dk_max : float
+        Largest |n_data - n_model| and |k_data - k_model| inside the region (NaN until sized).
+    exceeds_tolerance : bool
+        True when ``deviation_rel`` is above the test's tolerance (only such regions make the
+        verdict "inconsistent").
+    origin : str
+        How the region was found: ``"run"`` (a run of large residuals, the region rule),
+        ``"core"`` (the worst part of a run that spread over much of the window) or
+        ``"worst_part"`` (the worst energies when only the overall misfit was too large).
     """
 
     from_ev: float
@@ -44,15 +57,26 @@ class Region:
     component: str
     severity: float
     label: str = "moderate"
+    deviation_rel: float = float("nan")
+    dn_max: float = float("nan")
+    dk_max: float = float("nan")
+    exceeds_tolerance: bool = True
+    origin: str = "run"
 
     def to_dict(self) -> dict:
-        """The region as summary.json holds it: from_ev, to_ev, component, severity, label."""
+        """The region as summary.json holds it: from_ev, to_ev, component, severity, label,
+        deviation_percent (100 x deviation_rel), dn_max, dk_max, exceeds_tolerance, origin."""
         return {
             "from_ev": json_float(self.from_ev),
             "to_ev": json_float(self.to_ev),
             "component": self.component,
             "severity": json_float(self.severity),
             "label": self.label,
+            "deviation_percent": json_float(100.0 * self.deviation_rel),
+            "dn_max": json_float(self.dn_max),
+            "dk_max": json_float(self.dk_max),
+            "exceeds_tolerance": bool(self.exceeds_tolerance),
+            "origin": self.origin,
         }
 
 
