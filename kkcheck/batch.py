@@ -8,6 +8,17 @@ becomes an ``error`` row in the index (with the file, the line and what was expe
 not stop the others, and neither does a worker that dies. Outputs of item ``name`` go to
 ``OUT/name/``; the index is written as ``OUT/index.csv`` and ``OUT/index.html``.
 
+Safety (see :mod:`kkcheck.outputs`): the batch holds the lock of ``OUT`` for its whole run;
+index.csv and index.html are checked before any item runs (an index kkcheck did not write, e.g.
+a user's own ``index.csv`` when ``OUT`` is the input folder, is refused and is vetted as a
+table like any other file); each item's outputs are planned, checked and committed as one
+(``OUT/name/.kkcheck-outputs.json`` records them with the input's sha256). Ctrl-C stops the
+batch promptly: running workers are ended, and the index of what finished is written, marked
+incomplete (the other items are ``not run`` rows). Local workers ignore Ctrl-C (the parent
+ends them) and end themselves when the parent dies (also on SIGKILL: they watch their parent
+process). With ``resume`` an item whose outputs are complete, unchanged and made from an
+input with the same sha256 is not run again; its previous row is reused.
+
 A config item is run with its own settings except three: its ``out`` key is replaced by
 ``OUT/name``, and without ``fit=True`` (``--fit``) it is only checked (no repair, fit or
 report), like the tables.
@@ -22,7 +33,7 @@ Index columns (:data:`INDEX_COLUMNS`)
 name, path
     Item name (file stem, made unique) and the file as given.
 status
-    ``ok`` or ``error``.
+    ``ok``, ``error``, or ``not run`` (the batch was interrupted first).
 verdict, chi2_dof, regions
     KK test verdict, chi2 per degree of freedom, number of inconsistent regions.
 outliers
@@ -37,17 +48,21 @@ warnings
 seconds
     Wall time of the item in its worker [s].
 error
-    For ``error`` rows: ``file:line: what was expected`` (or the internal error).
+    For ``error`` rows: ``file:line: what was expected`` (or the internal error); text cells
+    are bounded to :data:`MAX_CELL_CHARS` characters in both index files.
 """
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import html
 import io
 import multiprocessing
 import os
+import signal
 import sys
+import threading
 import time
 import urllib.parse
 import warnings
@@ -56,7 +71,7 @@ from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass
 from pathlib import Path
 
-from .errors import InputError
+from .errors import InputError, OutputError
 
 __all__ = ["BatchResult", "find_items", "vet_item", "run_batch", "INDEX_COLUMNS"]
 
@@ -83,6 +98,12 @@ INDEX_COLUMNS = (
     "seconds",
     "error",
 )
+
+#: Longest text cell written into the index (file names, paths, error messages) [characters].
+MAX_CELL_CHARS = 300
+
+#: How often a local worker checks that its parent still runs [s].
+_PARENT_POLL_S = 0.5
 
 #: Environment variables that cap the threads of numerical libraries in local workers.
 _THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
@@ -179,56 +200,21 @@ def _seconds(t0: float) -> str:
     return f"{time.perf_counter() - t0:.2f}"
 
 
-def vet_item(path: str, out_dir: str, name: str, fit: bool = False) -> dict:
-    """Vet one item and return its index row (never raises for bad input or internal errors).
-
-    This is the worker function: it runs in a separate process (or on a Dask worker).
-
-    Parameters
-    ----------
-    path : str
-        A table or a TOML config.
-    out_dir : str
-        Folder for this item's outputs (created).
-    name : str
-        The item's name in the index.
-    fit : bool
-        Also repair and fit (for configs: as the config says, else only check).
-
-    Returns
-    -------
-    dict
-        Keys :data:`INDEX_COLUMNS`; all values are plain str/int/bool (picklable).
-    """
+def _analyse_item(p: Path, fit: bool):
+    """The job of one item, analysed but not written."""
     from . import pipeline
 
-    t0 = time.perf_counter()
-    row: dict = {c: "" for c in INDEX_COLUMNS}
-    row.update(name=name, path=str(path))
-    p = Path(path)
-    try:
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            if p.suffix.lower() == CONFIG_SUFFIX:
-                inputs, _, opts = pipeline.load_config(p)
-                if not fit:
-                    opts = pipeline.JobOptions(**{**opts.as_dict(), "do_fit": False, "html": False})
-                res = pipeline.run_job(inputs, out_dir, opts, False, f"kkcheck batch ({p.name})")
-            elif fit:
-                res = pipeline.fit([str(p)], out_dir=out_dir)
-            else:
-                res = pipeline.check([str(p)], out_dir=out_dir)
-    except InputError as exc:
-        row.update(status="error", error=exc.one_line(), seconds=_seconds(t0))
-        return row
-    except Exception as exc:  # an internal failure must not stop the batch either
-        msg = " ".join(str(exc).split())
-        row.update(
-            status="error",
-            error=f"{path}: internal error: {type(exc).__name__}: {msg}",
-            seconds=_seconds(t0),
-        )
-        return row
+    if p.suffix.lower() == CONFIG_SUFFIX:
+        inputs, _, opts = pipeline.load_config(p)
+        if not fit:
+            opts = pipeline.JobOptions(**{**opts.as_dict(), "do_fit": False, "html": False})
+        return pipeline.run_job(inputs, None, opts, False, f"kkcheck batch ({p.name})")
+    if fit:
+        return pipeline.fit([str(p)])
+    return pipeline.check([str(p)])
+
+
+def _ok_row(row: dict, res, caught) -> None:
     msgs = set(res.warnings) | {f"{w.category.__name__}: {w.message}" for w in caught}
     kk = res.kk
     spec = res.clean.spectrum
@@ -249,13 +235,99 @@ def vet_item(path: str, out_dir: str, name: str, fit: bool = False) -> dict:
             rms_rel=f"{res.fit.rms_rel:.3g}",
             passive=bool(res.fit.passivity.certified),
         )
-    row["seconds"] = _seconds(t0)
+
+
+def vet_item(
+    path: str, out_dir: str, name: str, fit: bool = False, overwrite: bool = False
+) -> dict:
+    """Vet one item and return its index row (never raises for bad input or internal errors).
+
+    This is the worker function: it runs in a separate process (or on a Dask worker).
+
+    Parameters
+    ----------
+    path : str
+        A table or a TOML config.
+    out_dir : str
+        Folder for this item's outputs (created; written by :func:`kkcheck.outputs.write_outputs`,
+        which records the row and the input's sha256 for ``resume``).
+    name : str
+        The item's name in the index.
+    fit : bool
+        Also repair and fit (for configs: as the config says, else only check).
+    overwrite : bool
+        Replace files in ``out_dir`` that kkcheck did not write.
+
+    Returns
+    -------
+    dict
+        Keys :data:`INDEX_COLUMNS`; all values are plain str/int/bool (picklable).
+    """
+    from .io.write import sha256_file
+    from .outputs import write_outputs
+
+    t0 = time.perf_counter()
+    row: dict = {c: "" for c in INDEX_COLUMNS}
+    row.update(name=name, path=str(path))
+    p = Path(path)
+    try:
+        sha = sha256_file(p)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            res = _analyse_item(p, fit)
+        _ok_row(row, res, caught)
+        row["seconds"] = _seconds(t0)
+        item = {"path": str(path), "sha256": sha, "fit": bool(fit)}
+        write_outputs(
+            res,
+            out_dir,
+            command=f"kkcheck batch ({p.name})",
+            overwrite=overwrite,
+            extra={"batch_row": row, "batch_item": item},
+        )
+    except (InputError, OutputError) as exc:
+        row.update({c: "" for c in INDEX_COLUMNS[3:]})
+        row.update(status="error", error=exc.one_line(), seconds=_seconds(t0))
+    except Exception as exc:  # an internal failure must not stop the batch either
+        msg = " ".join(str(exc).split())
+        row.update({c: "" for c in INDEX_COLUMNS[3:]})
+        row.update(
+            status="error",
+            error=f"{path}: internal error: {type(exc).__name__}: {msg}",
+            seconds=_seconds(t0),
+        )
     return row
+
+
+def _previous_row(task) -> dict | None:
+    """The row of an earlier run of ``task`` when its outputs are complete and up to date."""
+    from .io.write import sha256_file
+    from .outputs import read_manifest
+
+    path, out_dir, name, fit = task[:4]
+    m = read_manifest(out_dir)
+    item, row = m.get("batch_item") or {}, m.get("batch_row")
+    if not m.get("complete") or not isinstance(row, dict) or row.get("status") != "ok":
+        return None
+    if item.get("path") != str(path) or item.get("fit") != bool(fit):
+        return None
+    try:
+        if sha256_file(path) != item.get("sha256"):
+            return None
+        for q, sha in (m.get("inputs") or {}).items():
+            if sha256_file(q) != sha:
+                return None
+        for rel, sha in (m.get("files") or {}).items():
+            if sha256_file(Path(out_dir) / rel) != sha:
+                return None
+    except OSError:
+        return None
+    return {**{c: "" for c in INDEX_COLUMNS}, **row, "name": name, "path": str(path)}
 
 
 def _failed_row(task, exc: BaseException) -> dict:
     """Index row for an item whose worker failed outside :func:`vet_item` (e.g. it died)."""
-    path, _, name, _ = task
+    path, name = task[0], task[2]
     row: dict = {c: "" for c in INDEX_COLUMNS}
     msg = " ".join(str(exc).split()) or "no message"
     row.update(
@@ -287,10 +359,36 @@ class _Bar:
             print(file=sys.stderr)
 
 
-def _init_worker(threads: int) -> None:
-    """Cap numerical-library threads in a fresh worker (unless the user set them)."""
+def _watch_parent(parent_pid: int) -> None:
+    """End this worker when the batch's process is gone (also after its SIGKILL).
+
+    A thread polls every :data:`_PARENT_POLL_S` seconds whether this process was re-parented
+    (its parent, the batch or its fork server, died) or the batch's pid no longer runs.
+    """
+    from .folderlock import pid_running
+
+    first_ppid = os.getppid()
+
+    def watch():
+        while True:
+            time.sleep(_PARENT_POLL_S)
+            if os.getppid() != first_ppid or not pid_running(parent_pid):
+                os._exit(1)
+
+    threading.Thread(target=watch, name="kkcheck-parent-watch", daemon=True).start()
+
+
+def _init_worker(threads: int, parent_pid: int = 0) -> None:
+    """Set up a fresh local worker.
+
+    Caps numerical-library threads (unless the user set them), ignores Ctrl-C (the parent
+    stops the batch and ends the workers) and watches the parent process.
+    """
     for var in _THREAD_VARS:
         os.environ.setdefault(var, str(threads))
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if parent_pid:
+        _watch_parent(parent_pid)
 
 
 def _mp_context():
@@ -299,21 +397,31 @@ def _mp_context():
     return multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
 
 
-def _run_local(tasks, jobs: int, bar: _Bar) -> list[dict]:
+def _end_workers(pool: ProcessPoolExecutor) -> None:
+    """Cancel what has not started and end the running workers now (Ctrl-C)."""
+    pool.shutdown(wait=False, cancel_futures=True)
+    # no public way to end running tasks before Python 3.14: the workers are terminated
+    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+        with contextlib.suppress(Exception):
+            proc.terminate()
+
+
+def _run_local(tasks, jobs: int, bar: _Bar, rows: list) -> None:
+    """Run ``tasks``, appending each finished row to ``rows`` (kept on KeyboardInterrupt)."""
     cores = os.cpu_count() or 1
     workers = min(jobs if jobs > 0 else cores, max(len(tasks), 1))
-    rows = []
     if workers == 1:
         for t in tasks:
             rows.append(vet_item(*t))
             bar.step()
-        return rows
-    with ProcessPoolExecutor(
+        return
+    pool = ProcessPoolExecutor(
         max_workers=workers,
         mp_context=_mp_context(),
         initializer=_init_worker,
-        initargs=(max(1, cores // workers),),
-    ) as pool:
+        initargs=(max(1, cores // workers), os.getpid()),
+    )
+    try:
         futures = {pool.submit(vet_item, *t): t for t in tasks}
         for fut in as_completed(futures):
             try:
@@ -321,10 +429,13 @@ def _run_local(tasks, jobs: int, bar: _Bar) -> list[dict]:
             except Exception as exc:  # a worker died (BrokenProcessPool) or could not start
                 rows.append(_failed_row(futures[fut], exc))
             bar.step()
-    return rows
+    except BaseException:
+        _end_workers(pool)
+        raise
+    pool.shutdown(wait=True)
 
 
-def _run_dask(tasks, scheduler, bar: _Bar, client=None) -> list[dict]:
+def _run_dask(tasks, scheduler, bar: _Bar, rows: list, client=None) -> None:
     try:
         from dask.distributed import Client
         from dask.distributed import as_completed as dask_completed
@@ -343,14 +454,16 @@ def _run_dask(tasks, scheduler, bar: _Bar, client=None) -> list[dict]:
         futures = {}
         for t in tasks:
             futures[client.submit(vet_item, *t, pure=False)] = t
-        rows = []
-        for fut in dask_completed(list(futures)):
-            try:
-                rows.append(fut.result())
-            except Exception as exc:  # e.g. KilledWorker: the item crashed its workers
-                rows.append(_failed_row(futures[fut], exc))
-            bar.step()
-        return rows
+        try:
+            for fut in dask_completed(list(futures)):
+                try:
+                    rows.append(fut.result())
+                except Exception as exc:  # e.g. KilledWorker: the item crashed its workers
+                    rows.append(_failed_row(futures[fut], exc))
+                bar.step()
+        except BaseException:
+            client.cancel(list(futures))
+            raise
     finally:
         if own:
             client.close()
@@ -360,26 +473,34 @@ def _run_dask(tasks, scheduler, bar: _Bar, client=None) -> list[dict]:
 _TEXT_COLUMNS = ("name", "path", "error")
 
 
+def _bounded(value) -> str:
+    """A text cell on one line and at most :data:`MAX_CELL_CHARS` characters."""
+    text = " ".join(str(value).split())
+    if len(text) > MAX_CELL_CHARS:
+        text = text[: MAX_CELL_CHARS - 3] + "..."
+    return text
+
+
 def _spreadsheet_safe(value):
-    """Prefix text that a spreadsheet would run as a formula (=, +, -, @) with a quote.
+    """Text bounded and quoted when a spreadsheet would run it as a formula (see io.write).
 
-    A file named ``=HYPERLINK(...).csv`` would otherwise become a live formula when a curator
-    opens index.csv (OWASP "CSV injection", common practice).
+    Values that are not text (counts, flags) are returned as they are.
     """
-    text = str(value)
-    return "'" + text if text[:1] in ("=", "+", "-", "@") else value
+    from .io.write import spreadsheet_safe
+
+    return spreadsheet_safe(_bounded(value)) if isinstance(value, str) else value
 
 
-def _write_index(rows: Sequence[dict], out: Path, folder: Path, protect=()) -> tuple[Path, Path]:
-    from .io import write_text
-
+def _index_csv(rows: Sequence[dict]) -> str:
     buf = io.StringIO()
     w = csv.DictWriter(buf, fieldnames=INDEX_COLUMNS, lineterminator="\n")
     w.writeheader()
     for r in rows:
         w.writerow({k: _spreadsheet_safe(v) if k in _TEXT_COLUMNS else v for k, v in r.items()})
-    csv_path = write_text(out / "index.csv", buf.getvalue(), overwrite_protect=protect)
+    return buf.getvalue()
 
+
+def _index_html(rows: Sequence[dict], out: Path, folder: Path, complete: bool) -> str:
     def link(r) -> str | None:
         if r["status"] != "ok":
             return None
@@ -390,7 +511,7 @@ def _write_index(rows: Sequence[dict], out: Path, folder: Path, protect=()) -> t
         return None
 
     def cell(r, c) -> str:
-        v = html.escape(str(r.get(c, "")))
+        v = html.escape(_bounded(r.get(c, "")))
         href = link(r) if c == "name" else None
         return f'<a href="{href}">{v}</a>' if href else v
 
@@ -401,26 +522,92 @@ def _write_index(rows: Sequence[dict], out: Path, folder: Path, protect=()) -> t
         + "</tr>"
         for r in rows
     )
-    n_bad = sum(r["status"] != "ok" for r in rows)
+    n_bad = sum(r["status"] == "error" for r in rows)
     n_inc = sum(r.get("verdict") == "inconsistent" for r in rows)
-    page = f"""<!DOCTYPE html>
+    n_left = sum(r["status"] == NOT_RUN for r in rows)
+    warn = (
+        ""
+        if complete
+        else f'<p class="incomplete"><strong>Incomplete:</strong> the batch was interrupted; '
+        f"{n_left} datasets were not run (rerun with --resume to finish).</p>\n"
+    )
+    return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8"><title>kkcheck batch index</title>
 <style>
 body {{ font-family: system-ui, sans-serif; margin: 2em; color: #222; }}
 table {{ border-collapse: collapse; font-size: 0.9em; }}
 th, td {{ border: 1px solid #ccc; padding: 0.25em 0.5em; text-align: left; }}
 tr.inconsistent td {{ background: #fde8e8; }} tr.error td {{ background: #eee; color: #900; }}
-tr.consistent td {{ background: #eef8ee; }}
+tr.consistent td {{ background: #eef8ee; }} .incomplete {{ color: #900; }}
 </style></head><body>
 <h1>kkcheck batch index</h1>
-<p>Folder: {html.escape(str(folder))} &mdash; {len(rows)} datasets, {n_inc} inconsistent,
+{warn}<p>Folder: {html.escape(_bounded(folder))} &mdash; {len(rows)} datasets, {n_inc} inconsistent,
 {n_bad} could not be vetted. Each verdict holds only for the window that dataset covers.</p>
 <table><thead><tr>{head}</tr></thead><tbody>
 {body}
 </tbody></table></body></html>
 """
-    html_path = write_text(out / "index.html", page, overwrite_protect=protect)
-    return csv_path, html_path
+
+
+def _write_index(
+    rows: Sequence[dict], out: Path, folder: Path, protect=(), *, complete=True, overwrite=False
+) -> tuple[Path, Path]:
+    """index.csv and index.html, planned, checked and committed as one (kkcheck.outputs)."""
+    from .io import write_text
+    from .outputs import staged_outputs
+
+    extra = {"complete": bool(complete)}
+    with staged_outputs(
+        out, protect, overwrite=overwrite, command="kkcheck batch", extra=extra
+    ) as stage:
+        write_text(stage / "index.csv", _index_csv(rows))
+        write_text(stage / "index.html", _index_html(rows, out, folder, complete))
+    return out / "index.csv", out / "index.html"
+
+
+#: Status of the rows of items an interrupted batch did not finish.
+NOT_RUN = "not run"
+
+
+def _not_run_rows(tasks, rows) -> list[dict]:
+    done = {r["name"] for r in rows}
+    out = []
+    for t in tasks:
+        if t[2] not in done:
+            row: dict = {c: "" for c in INDEX_COLUMNS}
+            row.update(
+                name=t[2], path=t[0], status=NOT_RUN, error="the batch was interrupted first"
+            )
+            out.append(row)
+    return out
+
+
+def _check_engine(engine, client, scheduler, jobs) -> None:
+    if engine not in ("local", "dask"):
+        raise InputError(f"unknown engine {engine!r}; expected local or dask")
+    if client is not None and engine != "dask":
+        raise ValueError("a Dask client was given but engine is not 'dask'")
+    if scheduler and engine != "dask":
+        raise InputError("--scheduler needs --engine dask")
+    if engine == "dask" and client is None and not scheduler:
+        raise InputError("--engine dask needs --scheduler ADDRESS (e.g. tcp://host:8786)")
+    if jobs < 0:
+        raise InputError(f"--jobs must be 0 (one per core) or a positive count, got {jobs}")
+
+
+def _own_index_files(out: Path) -> list[Path]:
+    """This folder's index files that kkcheck wrote (a user's own index.csv is not skipped)."""
+    from .outputs import plan_outputs
+
+    ours = []
+    for name in INDEX_FILES:
+        try:
+            plan_outputs(out, [name])
+        except OutputError:
+            continue  # exists and is not kkcheck's: an input like any other
+        if (out / name).exists():
+            ours.append(out / name)
+    return ours
 
 
 def run_batch(
@@ -434,6 +621,8 @@ def run_batch(
     fit: bool = False,
     progress: bool = False,
     items: Sequence[Path] | None = None,
+    overwrite: bool = False,
+    resume: bool = False,
 ) -> BatchResult:
     """Vet every item of ``folder``; write per-item outputs and the index into ``out_dir``.
 
@@ -442,7 +631,7 @@ def run_batch(
     folder : path
         Folder of tables and/or TOML configs (not searched recursively).
     out_dir : path
-        Output folder (created); item ``name`` writes to ``out_dir/name``.
+        Output folder (created, locked for the run); item ``name`` writes to ``out_dir/name``.
     jobs : int
         Local worker processes (0: one per core; 1: in this process).
     engine : {"local", "dask"}
@@ -458,6 +647,11 @@ def run_batch(
         Progress bar on stderr (only when it is a terminal).
     items : sequence of path, optional
         Vet these files instead of the folder's contents.
+    overwrite : bool
+        Replace files in the output folders that kkcheck did not write.
+    resume : bool
+        Skip items whose outputs are complete, unchanged and made from the same input
+        (sha256); their previous rows are reused.
 
     Returns
     -------
@@ -469,36 +663,69 @@ def run_batch(
         No usable folder or items, negative ``jobs``, an unknown engine, a scheduler without
         the dask engine, or a Dask scheduler that cannot be reached. Bad items never raise:
         they become ``error`` rows.
+    OutputError
+        The index files are refused (see :mod:`kkcheck.outputs`) or the output folder cannot
+        be used; checked before any item runs.
+    KeyboardInterrupt
+        After the index of the finished items was written, marked incomplete.
     """
-    if engine not in ("local", "dask"):
-        raise InputError(f"unknown engine {engine!r}; expected local or dask")
-    if client is not None and engine != "dask":
-        raise ValueError("a Dask client was given but engine is not 'dask'")
-    if scheduler and engine != "dask":
-        raise InputError("--scheduler needs --engine dask")
-    if engine == "dask" and client is None and not scheduler:
-        raise InputError("--engine dask needs --scheduler ADDRESS (e.g. tcp://host:8786)")
-    if jobs < 0:
-        raise InputError(f"--jobs must be 0 (one per core) or a positive count, got {jobs}")
+    from .outputs import plan_outputs, reserve_folder
+
+    _check_engine(engine, client, scheduler, jobs)
     folder = Path(folder)
     out = Path(out_dir)
-    if out.exists() and not out.is_dir():
-        raise InputError("expected a folder for --out, found a file", path=str(out))
-    if items is None:
-        items = find_items(folder, exclude=[out / f for f in INDEX_FILES])
-    items = [Path(p) for p in items]
-    out.mkdir(parents=True, exist_ok=True)
-    taken: set[str] = set()
-    tasks = [(str(p), str(out / (nm := _item_name(p, taken))), nm, fit) for p in items]
+    with reserve_folder(out, "kkcheck batch"):
+        if items is None:
+            items = find_items(folder, exclude=_own_index_files(out))
+        items = [Path(p) for p in items]
+        protect = [str(p) for p in items]
+        plan_outputs(out, INDEX_FILES, protect, overwrite=overwrite)  # before any item runs
+        taken: set[str] = set()
+        tasks = [
+            (str(p), str(out / (nm := _item_name(p, taken))), nm, fit, overwrite) for p in items
+        ]
+        return _run_tasks(
+            tasks,
+            out,
+            folder,
+            protect,
+            engine,
+            scheduler,
+            client,
+            jobs,
+            progress,
+            resume,
+            overwrite,
+        )
+
+
+def _run_tasks(
+    tasks, out, folder, protect, engine, scheduler, client, jobs, progress, resume, overwrite
+):
+    rows: list[dict] = []
+    if resume:
+        for t in list(tasks):
+            prev = _previous_row(t)
+            if prev is not None:
+                rows.append(prev)
+        done = {r["name"] for r in rows}
+        tasks = [t for t in tasks if t[2] not in done]
     bar = _Bar(len(tasks), progress)
     t0 = time.perf_counter()
+    complete = False
     try:
         if engine == "local":
-            rows = _run_local(tasks, jobs, bar)
+            _run_local(tasks, jobs, bar, rows)
         else:
-            rows = _run_dask(tasks, scheduler, bar, client=client)
+            _run_dask(tasks, scheduler, bar, rows, client=client)
+        complete = True
     finally:
         bar.close()
+        if not complete:  # interrupted: the index of what finished, marked incomplete
+            rows += _not_run_rows(tasks, rows)
+            rows.sort(key=lambda r: r["name"])
+            with contextlib.suppress(Exception):
+                _write_index(rows, out, folder, protect, complete=False, overwrite=overwrite)
     rows.sort(key=lambda r: r["name"])
-    files = _write_index(rows, out, folder, protect=[str(p) for p in items])
+    files = _write_index(rows, out, folder, protect, overwrite=overwrite)
     return BatchResult(tuple(rows), out, files, time.perf_counter() - t0, engine)

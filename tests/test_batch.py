@@ -186,7 +186,8 @@ def test_a_task_failing_outside_the_item_check_becomes_an_error_row(tmp_path):
     make_folder(src, 2)
     good = [(str(p), str(tmp_path / p.stem), p.stem, False) for p in sorted(src.iterdir())]
     broken = (good[0][0], str(tmp_path / "broken"), "broken", threading.Lock())
-    rows = batch._run_local([good[0], broken, good[1]], 2, batch._Bar(3, False))
+    rows: list = []
+    batch._run_local([good[0], broken, good[1]], 2, batch._Bar(3, False), rows)
     by_name = {r["name"]: r for r in rows}
     assert sorted(by_name) == sorted([good[0][2], "broken", good[1][2]])
     assert by_name["broken"]["status"] == "error"

@@ -1,13 +1,28 @@
-"""Writers: CSV tables with unit-bearing headers and a provenance block, and JSON.
+"""Writers: CSV tables with unit-bearing headers and a provenance block, JSON, text and bytes.
 
-Both writers
+Every file kkcheck writes (tables, JSON, HTML, Markdown, figures) goes through
+:func:`atomic_write_bytes`:
 
-* write atomically: the content goes to a temporary file in the target's directory, is
-  flushed to disk, and then replaces the target with :func:`os.replace`, so a reader never
-  sees half a file and an interrupted run leaves the old file intact;
-* refuse (:class:`~kkcheck.errors.InputError`) to write onto any path in
+* the content goes to a temporary file in the target's folder (created with mode 0666 minus
+  the umask, as any other new file), is flushed and fsynced, and then replaces the target with
+  :func:`os.replace`, so a reader never sees half a file and an interrupted run leaves the old
+  file intact; the temporary file is removed on any failure;
+* a failure of the file system (no permission, read-only, disk full, path too long) becomes a
+  one-line :class:`~kkcheck.errors.OutputError` naming the path and the cause;
+* the writers refuse (:class:`~kkcheck.errors.InputError`) to write onto any path in
   ``overwrite_protect`` (the run's input files), comparing resolved paths and, where both
   exist, :func:`os.path.samefile` (which also catches hard links).
+
+Which files a command may write at all (inputs, symlinks, files kkcheck did not write) is
+decided before anything is written, by :mod:`kkcheck.outputs`.
+
+Every text cell written into a CSV passes :func:`spreadsheet_safe`.
+
+References
+----------
+.. [1] OWASP Foundation, "CSV Injection" (community page; the leading characters ``= + - @``,
+   tab and carriage return that spreadsheets treat as the start of a formula). Common
+   practice, cited from memory; see docs/references.md#csv-injection.
 """
 
 from __future__ import annotations
@@ -18,19 +33,29 @@ import hashlib
 import json
 import math
 import os
-import tempfile
+import secrets
 from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from ..errors import InputError
+from ..errors import InputError, OutputError
 from ..spectrum import Dataset, Spectrum
 from ..units import AXIS_UNITS, from_energy_ev
 from . import headers as _h
 
-__all__ = ["write_table_csv", "write_json", "write_text", "sha256_file", "check_not_input"]
+__all__ = [
+    "write_table_csv",
+    "render_table_csv",
+    "write_json",
+    "render_json",
+    "write_text",
+    "atomic_write_bytes",
+    "spreadsheet_safe",
+    "sha256_file",
+    "check_not_input",
+]
 
 #: Preferred column order after the axis column; other readable columns follow.
 _ORDER = (
@@ -82,25 +107,98 @@ def check_not_input(path, overwrite_protect=()) -> Path:
     return target
 
 
-def _atomic_write(target: Path, text: str) -> None:
+#: Leading characters that make a spreadsheet read a cell as a formula (OWASP, see above).
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def spreadsheet_safe(text) -> str:
+    """``text`` with a leading ``'`` when a spreadsheet would run it as a formula.
+
+    Cells starting with ``= + - @``, a tab or a carriage return are prefixed with a single
+    quote (OWASP "CSV injection" [1]_), so a source named ``=1+1`` stays the text ``=1+1``
+    when the table is opened in a spreadsheet. Other text is returned unchanged.
+    """
+    t = str(text)
+    return "'" + t if t.startswith(_FORMULA_START) else t
+
+
+def _fsync_dir(folder: Path) -> None:
+    """Make a rename in ``folder`` durable (best effort: not every file system allows it)."""
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def _write_all(fd: int, data: bytes) -> None:
+    view = memoryview(data)
+    while view:
+        n = os.write(fd, view)
+        view = view[n:]
+
+
+def atomic_write_bytes(path, data: bytes) -> Path:
+    """Write ``data`` to ``path`` atomically (temporary file, fsync, rename), honouring the umask.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Target file; its folder must exist. An existing file is replaced only by the complete
+        new content; a symlink at ``path`` is replaced by the file (never followed).
+    data : bytes
+        The complete content.
+
+    Returns
+    -------
+    pathlib.Path
+        The path written.
+
+    Raises
+    ------
+    InputError
+        The folder does not exist or ``path`` is a folder.
+    OutputError
+        The file system refused (no permission, read-only, disk full, path too long): one
+        line naming the path and the cause. No temporary file is left behind.
+    """
+    target = Path(os.fspath(path))
     parent = target.parent if str(target.parent) else Path(".")
     if not parent.is_dir():
         raise InputError("output directory does not exist; expected an existing one", str(target))
-    if target.is_dir():
+    if target.is_dir() and not target.is_symlink():
         raise InputError("is a directory; expected a file path to write", str(target))
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=parent)
+    tmp = parent / f".{target.name[:80]}.{secrets.token_hex(6)}.tmp"
     try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as f:
-            f.write(text)
-            f.flush()
-            os.fsync(f.fileno())
+        fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)  # 0666 & ~umask
+    except OSError as exc:
+        raise OutputError.from_os_error(exc, target) from None
+    try:
+        try:
+            _write_all(fd, bytes(data))
+            os.fsync(fd)
+        finally:
+            os.close(fd)
         os.replace(tmp, target)
-    except BaseException:
+    except BaseException as exc:
         try:
             os.unlink(tmp)
         except OSError:
             pass
+        if isinstance(exc, OSError):
+            raise OutputError.from_os_error(exc, target) from None
         raise
+    _fsync_dir(parent)
+    return target
+
+
+def _atomic_write(target: Path, text: str) -> None:
+    atomic_write_bytes(target, text.encode("utf-8"))
 
 
 # ------------------------------------------------------------------------------------------
@@ -139,7 +237,7 @@ def _column_text(values: np.ndarray) -> list[str]:
         elif isinstance(v, int) and not isinstance(v, bool):
             out.append(str(v))
         else:
-            out.append(str(v).translate(_TEXT_FORBIDDEN))
+            out.append(spreadsheet_safe(str(v).translate(_TEXT_FORBIDDEN)))
     return out
 
 
@@ -180,8 +278,18 @@ def write_table_csv(
     The comment block holds the kkcheck version, the UTC time of writing, the inputs with
     sha256, reader notes of a Dataset, and ``provenance_lines``. Floats are written with
     Python's shortest round-trip repr, NaN as ``nan``. Text cells have ``, ; # " tab CR LF``
-    replaced by ``_`` so that the file splits unambiguously.
+    replaced by ``_`` so that the file splits unambiguously, and pass :func:`spreadsheet_safe`.
     """
+    target = check_not_input(path, overwrite_protect)
+    text = render_table_csv(
+        data, axis=axis, provenance_lines=provenance_lines, inputs=overwrite_protect
+    )
+    _atomic_write(target, text)
+    return target
+
+
+def render_table_csv(data, *, axis: str = "energy_ev", provenance_lines=(), inputs=()) -> str:
+    """The text :func:`write_table_csv` writes (``inputs`` listed with their sha256)."""
     from .._version import __version__
 
     if axis not in AXIS_UNITS:
@@ -200,8 +308,6 @@ def write_table_csv(
             f"columns {unreadable} would not read back; add their spelling to "
             "kkcheck.io.headers or drop them"
         )
-    target = check_not_input(path, overwrite_protect)
-
     cols = [c for c in _ORDER if c in frame.columns]
     # the axis column is written once, first, from energy_ev (a frame's own copy is dropped)
     cols += [c for c in frame.columns if c not in cols and c not in ("energy_ev", axis)]
@@ -218,7 +324,7 @@ def write_table_csv(
     if ds is not None and ds.provenance.path:
         head.append(f"source {ds.name}: {ds.provenance.path} sha256={ds.provenance.sha256}")
         head += [f"reader note: {n}" for n in ds.provenance.notes]
-    for q in sorted({str(q) for q in overwrite_protect}):
+    for q in sorted({str(q) for q in inputs}):
         if Path(q).is_file():
             head.append(f"input {q} sha256={sha256_file(q)}")
     for line in provenance_lines:
@@ -228,8 +334,7 @@ def write_table_csv(
     columns = [_column_text(axis_values[order])]
     columns += [_column_text(frame[c].to_numpy()[order]) for c in cols]
     out.extend(map(",".join, zip(*columns, strict=True)))
-    _atomic_write(target, "\n".join(out) + "\n")
-    return target
+    return "\n".join(out) + "\n"
 
 
 # ------------------------------------------------------------------------------------------
@@ -293,11 +398,16 @@ def write_json(path, obj, *, sort_keys: bool = False, indent: int = 2, overwrite
     JSON has no NaN or infinity: both become ``null``. Dict keys become strings.
     """
     target = check_not_input(path, overwrite_protect)
+    _atomic_write(target, render_json(obj, sort_keys=sort_keys, indent=indent))
+    return target
+
+
+def render_json(obj, *, sort_keys: bool = False, indent: int = 2) -> str:
+    """The text :func:`write_json` writes (NaN and infinities as ``null``)."""
     text = json.dumps(
         _plain(obj), indent=indent, sort_keys=sort_keys, allow_nan=False, ensure_ascii=False
     )
-    _atomic_write(target, text + "\n")
-    return target
+    return text + "\n"
 
 
 def write_text(path, text: str, *, overwrite_protect=()):

@@ -18,11 +18,14 @@ References
 
 from __future__ import annotations
 
+import io
 import os
 from pathlib import Path
 
 import numpy as np
 from matplotlib.figure import Figure
+
+from ...io.write import atomic_write_bytes
 
 __all__ = [
     "FIGURE_DPI",
@@ -108,10 +111,14 @@ def save(fig: Figure, path_stem) -> Path:
     png = Path(str(stem) + ".png")
     pdf = Path(str(stem) + ".pdf")
     # No bbox_inches="tight": the PNG keeps exactly figsize * dpi pixels; the constrained
-    # layout engine keeps labels inside the canvas.
-    fig.savefig(png, dpi=FIGURE_DPI, format="png", metadata={"Software": None})
+    # layout engine keeps labels inside the canvas. Each file is rendered to bytes first and
+    # written by the atomic writer (never a half-written figure, never through a symlink).
+    png_bytes, pdf_bytes = io.BytesIO(), io.BytesIO()
+    fig.savefig(png_bytes, dpi=FIGURE_DPI, format="png", metadata={"Software": None})
     # no creation date: the same data give byte-identical files (diffable example reports)
-    fig.savefig(pdf, format="pdf", metadata={"Creator": "kkcheck", "CreationDate": None})
+    fig.savefig(pdf_bytes, format="pdf", metadata={"Creator": "kkcheck", "CreationDate": None})
+    atomic_write_bytes(png, png_bytes.getvalue())
+    atomic_write_bytes(pdf, pdf_bytes.getvalue())
     return png
 
 
