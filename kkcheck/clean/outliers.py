@@ -24,6 +24,7 @@ import numpy as np
 from ..jsonsafe import json_float
 from ..noise import NORMAL_MAD, _components, _running, _source_points, running_noise_sigma
 from ..spectrum import Spectrum
+from .precision import component_rounding, rounding_margin
 
 __all__ = ["Outlier", "find_spikes"]
 
@@ -45,10 +46,12 @@ class Outlier:
     component : str
         ``"eps1"``, ``"eps2"``, ``"n"`` or ``"k"`` (the quantity the source was written in).
     kind : str
-        ``"spike"`` (one or two points off the local trend) or ``"step"`` (first point after a
-        jump the local trend does not explain).
+        ``"spike"`` (one or two points off the local trend), ``"step"`` (first point after a
+        jump the local trend does not explain) or ``"plateau"`` (a run of points raised or
+        lowered between two opposite jumps: a local fault, see
+        :func:`kkcheck.clean.find_steps`; never levelled).
     index : int
-        Position of the point in the spectrum's arrays.
+        Position of the point in the spectrum's arrays (for a plateau, its first point).
     value : float
         The measured value of ``component`` at the point [component units].
     expected : float
@@ -57,7 +60,13 @@ class Outlier:
         (``value - jump``).
     size : float
         Deviation in units of its own standard deviation (a robust z-score) [dimensionless].
-        For a step, ``value - expected`` is the jump in component units.
+        For a step, ``value - expected`` is the jump in component units; for a plateau, the
+        jump into it, and ``size`` the smaller of its two jumps' sizes.
+    end_energy_ev : float or None
+        Plateau only: photon energy of its last point [eV] (the plateau spans
+        ``energy_ev`` .. ``end_energy_ev``).
+    end_index : int or None
+        Plateau only: position of the first point after it (where the values return).
     """
 
     energy_ev: float
@@ -68,16 +77,26 @@ class Outlier:
     value: float
     expected: float
     size: float
+    end_energy_ev: float | None = None
+    end_index: int | None = None
 
     def to_dict(self) -> dict:
-        """The ``outliers[*]`` item of summary.json (NaN and infinities become null)."""
-        return {
+        """The ``outliers[*]`` item of summary.json (NaN and infinities become null).
+
+        A plateau also carries ``energy_range_ev`` [first, last point] and ``jump`` (into it,
+        component units).
+        """
+        d = {
             "energy_ev": json_float(self.energy_ev),
             "source": self.source,
             "component": self.component,
             "kind": self.kind,
             "size_sigma": json_float(self.size),
         }
+        if self.kind == "plateau":
+            d["energy_range_ev"] = [json_float(self.energy_ev), json_float(self.end_energy_ev)]
+            d["jump"] = json_float(self.value - self.expected)
+        return d
 
 
 # --------------------------------------------------------------------------- local fits
@@ -86,7 +105,8 @@ class Outlier:
 def _poly_predict(x, y, w, offsets: np.ndarray, x_at: np.ndarray, deg: int, seg=None):
     """Weighted polynomial fit on the points ``i + offsets`` of each i, evaluated at x_at[i].
 
-    Returns (prediction, variance factor v, mean square residual) per i. For 0/1 weights,
+    Returns (prediction, variance factor v, mean square residual, sum_j |c_j|) per i, with
+    c_j the weights of the prediction as a combination of the y_j. For 0/1 weights,
     var(prediction) = v * s^2 for white noise of variance s^2 (v = e^T (X^T W X)^-1 e).
     The mean square residual is ssr / (points - deg - 1). Rows with fewer than deg + 2
     usable points give NaN. With ``seg`` (segment number per point) a fit only uses points
@@ -119,7 +139,8 @@ def _poly_predict(x, y, w, offsets: np.ndarray, x_at: np.ndarray, deg: int, seg=
     var = np.where(good, (e * Ainv_e).sum(1), np.nan)
     res = Y - np.einsum("nmi,ni->nm", V, coef)
     ms = (W * res * res).sum(1) / np.maximum(npts - deg - 1, 1)
-    return pred, var, np.where(good, ms, np.nan)
+    csum = np.abs(W * np.einsum("nmi,ni->nm", V, Ainv_e)).sum(1)
+    return pred, var, np.where(good, ms, np.nan), np.where(good, csum, np.nan)
 
 
 def _hampel_z(r: np.ndarray, floor: np.ndarray, half: int, centre_half: int) -> np.ndarray:
@@ -155,6 +176,7 @@ def _spike_mask(
     y: np.ndarray,
     seg: np.ndarray,
     offsets: np.ndarray,
+    rounding: np.ndarray,
     *,
     threshold: float,
     noise_window: int,
@@ -163,21 +185,28 @@ def _spike_mask(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Spikes of one component: (flagged mask, quadratic prediction, its z-score).
 
-    Passes repeat, the points flagged by one pass weighing zero in the fits of the next,
+    ``rounding`` is the printed-precision standard uncertainty of each point (q / sqrt(12),
+    zeros when unknown): it floors the noise level, and a spike's residual must exceed
+    :func:`kkcheck.clean.precision.rounding_margin` of the points in its window for both
+    degrees. Passes repeat, the points flagged by one pass weighing zero in the fits of the next,
     until the mask no longer changes or ``max_passes`` is reached; prediction and z-score
     are those of the last pass.
     """
-    sigma = running_noise_sigma(x, y, noise_window)
+    sigma = np.maximum(running_noise_sigma(x, y, noise_window), rounding)
+    u_near = _running(np.nanmax, rounding, int(offsets.max()))
     flagged = np.zeros(x.size, bool)
     p = z = np.full(x.size, np.nan)
     for _ in range(max_passes):
         w = np.where(flagged, 0.0, 1.0)
-        p, v, _ms = _poly_predict(x, y, w, offsets, x, 2, seg)
+        p, v, _ms, c2 = _poly_predict(x, y, w, offsets, x, 2, seg)
         z = _hampel_z(y - p, sigma * np.sqrt(1.0 + v), hampel_half, noise_window)
-        p4, v4, _ms = _poly_predict(x, y, w, offsets, x, 4, seg)
+        p4, v4, _ms, c4 = _poly_predict(x, y, w, offsets, x, 4, seg)
         z4 = _hampel_z(y - p4, sigma * np.sqrt(1.0 + v4), hampel_half, noise_window)
         z4 = np.where(np.isfinite(z4), z4, z)
-        new = np.isfinite(z) & (np.abs(z) > threshold) & (np.abs(z4) > threshold)
+        printed = (np.abs(y - p) > rounding_margin(u_near, 1.0 + c2)) & (
+            np.abs(y - np.where(np.isfinite(p4), p4, p)) > rounding_margin(u_near, 1.0 + c4)
+        )
+        new = np.isfinite(z) & (np.abs(z) > threshold) & (np.abs(z4) > threshold) & printed
         if np.array_equal(new, flagged):
             break
         flagged = new
@@ -271,13 +300,17 @@ def find_spikes(
         if idx.size < 5:
             continue
         x = spectrum.energy_ev[idx]
-        seg = _segments(idx.size, idx, {o.index for o in steps if o.source == name})
-        for comp, y in _components(spectrum, s, idx):
+        starts = {o.index for o in steps if o.source == name}
+        starts |= {o.end_index for o in steps if o.source == name and o.end_index is not None}
+        seg = _segments(idx.size, idx, starts)
+        roundings = component_rounding(spectrum, s, idx)
+        for (comp, y), u in zip(_components(spectrum, s, idx), roundings, strict=True):
             flagged, p, z = _spike_mask(
                 x,
                 y,
                 seg,
                 offsets,
+                u,
                 threshold=threshold,
                 noise_window=noise_window,
                 hampel_half=hampel_half,

@@ -41,8 +41,10 @@ def _masks(m: int, outliers: Sequence[Outlier]) -> tuple[np.ndarray, np.ndarray]
     for o in outliers:
         if not 0 <= o.index < m:
             raise ValueError(f"outlier index {o.index} is outside the spectrum")
-        if o.kind == "step":
+        if o.kind in ("step", "plateau"):
             step[o.index] = True
+            if o.end_index is not None and 0 <= o.end_index < m:
+                step[o.end_index] = True  # a plateau's return jump
         else:
             spike[o.index] = True
     return spike, step

@@ -20,6 +20,7 @@ from ..noise import _components, _running, _source_points, running_noise_sigma
 from ..spectrum import Flag, Spectrum
 from ..units import eps_to_nk, nk_to_eps
 from .outliers import Outlier
+from .precision import component_rounding, near_zero, rounding_margin
 
 __all__ = ["StepCorrection", "find_steps", "level_steps", "level_steps_if_better"]
 
@@ -88,8 +89,9 @@ def _jump_fit(x, y, w, window: int, deg: int = 3):
 
     For the gap between points g and g+1 (x_m their mid-point) the model is a polynomial of
     degree ``deg`` plus a jump J at x_m, fitted by weighted least squares to points
-    g-window+1 .. g+window. Returns (J, variance factor of J, mean square residual) per gap
-    (index g); NaN where either side has fewer than 3 usable points.
+    g-window+1 .. g+window. Returns (J, variance factor of J, mean square residual,
+    sum_j |c_j| with J = sum_j c_j y_j) per gap (index g); NaN where either side has fewer
+    than 3 usable points.
     """
     n = x.size
     offsets = np.arange(-window + 1, window + 1)
@@ -115,17 +117,25 @@ def _jump_fit(x, y, w, window: int, deg: int = 3):
     coef = np.linalg.solve(A, b[..., None])[..., 0]
     e = np.zeros(deg + 2)
     e[-1] = 1.0
-    var = np.linalg.solve(A, np.broadcast_to(e, (n, deg + 2))[..., None])[..., -1, 0]
+    ainv_e = np.linalg.solve(A, np.broadcast_to(e, (n, deg + 2))[..., None])[..., 0]
+    var = ainv_e[:, -1]
+    csum = np.abs(W * np.einsum("nmi,ni->nm", V, ainv_e)).sum(1)
     res = y[idc] - np.einsum("nmi,ni->nm", V, coef)
     ms = (W * res * res).sum(1) / np.maximum(nl + nr - deg - 2, 1)
     nan = np.full(n, np.nan)
-    return np.where(good, coef[:, -1], nan), np.where(good, var, nan), np.where(good, ms, nan)
+    return (
+        np.where(good, coef[:, -1], nan),
+        np.where(good, var, nan),
+        np.where(good, ms, nan),
+        np.where(good, csum, nan),
+    )
 
 
 def _step_gaps(
     x: np.ndarray,
     y: np.ndarray,
     w: np.ndarray,
+    rounding: np.ndarray,
     *,
     threshold: float,
     window: int,
@@ -135,14 +145,18 @@ def _step_gaps(
     """Gaps of one component holding a step: (gap indices g, jumps J per gap, |J|/sd(J)).
 
     A gap g (between points g and g+1) holds a step when |J|/sd(J) exceeds ``threshold``,
-    the cubic-plus-jump model fits within ``max_misfit`` noise sigmas (rms), and |J|/sd(J)
-    is the largest within +-``window`` gaps.
+    |J| exceeds the printed precision (:func:`kkcheck.clean.precision.rounding_margin` of
+    the points in the fit), the cubic-plus-jump model fits within ``max_misfit`` noise
+    sigmas (rms), and |J|/sd(J) is the largest within +-``window`` gaps. ``rounding`` (the
+    printed-precision standard uncertainty per point, zeros when unknown) floors the noise.
     """
-    sigma = running_noise_sigma(x, y, noise_window)
-    jump, var, ms = _jump_fit(x, y, w, window)
+    sigma = np.maximum(running_noise_sigma(x, y, noise_window), rounding)
+    jump, var, ms, csum = _jump_fit(x, y, w, window)
+    u_near = _running(np.nanmax, np.append(rounding, rounding[-1]), window)[1:]
+    printed = np.abs(jump) > rounding_margin(u_near, csum)
     z = jump / (sigma * np.sqrt(var))
     fit_ok = np.sqrt(ms) < max_misfit * sigma
-    az = np.where(np.isfinite(z) & fit_ok, np.abs(z), 0.0)
+    az = np.where(np.isfinite(z) & fit_ok & printed, np.abs(z), 0.0)
     az[-1] = 0.0
     peak = az >= _running(np.nanmax, az, window)
     return np.flatnonzero(peak & (az > threshold)), jump, az
@@ -211,44 +225,113 @@ def find_steps(
         if idx.size < 2 * window:
             continue
         x = spectrum.energy_ev[idx]
-        for comp, y in _components(spectrum, s, idx):
+        roundings = component_rounding(spectrum, s, idx)
+        for (comp, y), u in zip(_components(spectrum, s, idx), roundings, strict=True):
             w = np.array([0.0 if (int(i), comp) in skip else 1.0 for i in idx])
             gaps, jump, az = _step_gaps(
                 x,
                 y,
                 w,
+                u,
                 threshold=threshold,
                 window=window,
                 noise_window=noise_window,
                 max_misfit=max_misfit,
             )
-            for g in gaps:
-                j = g + 1
+            found = [
+                Outlier(
+                    energy_ev=float(x[g + 1]),
+                    source=name,
+                    component=comp,
+                    kind="step",
+                    index=int(idx[g + 1]),
+                    value=float(y[g + 1]),
+                    expected=float(y[g + 1] - jump[g]),
+                    size=float(az[g]),
+                )
+                for g in gaps
+            ]
+            out += _paired_plateaus(found, spectrum.energy_ev, idx)
+    return tuple(sorted(out, key=lambda o: (o.energy_ev, o.component)))
+
+
+#: Two neighbouring opposite jumps bound a plateau when the second undoes the first to
+#: within this fraction of the larger one (common practice, no source).
+PLATEAU_RETURN = 0.5
+
+
+def _paired_plateaus(steps: list[Outlier], energy_ev: np.ndarray, idx: np.ndarray):
+    """``steps`` (one source and component, in energy order) with each pair of neighbouring
+    opposite jumps of similar size replaced by one ``"plateau"`` record.
+
+    The pair (a, b) is a plateau when the jumps have opposite signs and |J_a + J_b| <=
+    :data:`PLATEAU_RETURN` max(|J_a|, |J_b|): the values leave a level and come back to it.
+    """
+    out: list[Outlier] = []
+    i = 0
+    while i < len(steps):
+        a = steps[i]
+        b = steps[i + 1] if i + 1 < len(steps) else None
+        if b is not None:
+            ja, jb = a.value - a.expected, b.value - b.expected
+            if ja * jb < 0 and abs(ja + jb) <= PLATEAU_RETURN * max(abs(ja), abs(jb)):
+                last = idx[int(np.searchsorted(idx, b.index)) - 1]
                 out.append(
-                    Outlier(
-                        energy_ev=float(x[j]),
-                        source=name,
-                        component=comp,
-                        kind="step",
-                        index=int(idx[j]),
-                        value=float(y[j]),
-                        expected=float(y[j] - jump[g]),
-                        size=float(az[g]),
+                    dataclasses.replace(
+                        a,
+                        kind="plateau",
+                        size=min(a.size, b.size),
+                        end_energy_ev=float(energy_ev[last]),
+                        end_index=int(b.index),
                     )
                 )
-    return tuple(sorted(out, key=lambda o: (o.energy_ev, o.component)))
+                i += 2
+                continue
+        out.append(a)
+        i += 1
+    return out
 
 
 # --------------------------------------------------------------------------- levelling
 
 
 def _kept_side(spectrum: Spectrum, below: np.ndarray, above: np.ndarray) -> tuple[bool, str]:
-    """(keep the lower-energy side?, why): more overlap points decide, else more points."""
+    """(keep the lower-energy side?, why): the side with more points is kept."""
+    keep_below = below.size >= above.size
+    kept = below if keep_below else above
+    n_ov = int(np.count_nonzero((spectrum.flags[kept] & int(Flag.OVERLAP)) != 0))
+    if n_ov:
+        return keep_below, f"holds more points and all {n_ov} in overlap with other sources"
+    return keep_below, "holds more points (no overlap decides)"
+
+
+def _refusal(
+    spectrum: Spectrum, s: int, shift: np.ndarray, kept: np.ndarray, component: str
+) -> str | None:
+    """Why the points ``shift`` of source ``s`` must not be moved, or None when they may.
+
+    Refused: the side to shift lies in overlap with other sources (there the merge checked
+    it against them: it agrees, or its disagreement is the merge's to report), or, for k or
+    eps2, it holds zero bounds (:func:`kkcheck.clean.precision.near_zero`) that the shift
+    would lift off zero.
+    """
     ov = (spectrum.flags & int(Flag.OVERLAP)) != 0
-    nb, na = int(np.count_nonzero(ov[below])), int(np.count_nonzero(ov[above]))
-    if nb != na:
-        return nb > na, "holds more points in overlap with other sources"
-    return below.size >= above.size, "holds more points (no overlap decides)"
+    n_ov = int(np.count_nonzero(ov[shift]))
+    if n_ov:
+        kept_ov = int(np.count_nonzero(ov[kept]))
+        return (
+            f"not levelled: the shorter side has {n_ov} point(s) in overlap with other "
+            f"sources (the longer side {kept_ov}); shifting it would move values checked "
+            "against another source, shifting the longer side would move more values"
+        )
+    zero = near_zero(spectrum, s, shift, component)
+    if zero.any():
+        return (
+            f"not levelled: the shorter side holds {int(zero.sum())} {component} value(s) "
+            "printed as 0 or within one unit of their last digit of 0 (below a band gap, "
+            "a bound); levelling would lift them off zero"
+        )
+    return None
 
 
 def _shifted(vals: np.ndarray, component: str, shift: float) -> np.ndarray:
@@ -290,25 +373,38 @@ def level_steps(
     -----
     A changeover step is an instrument artefact: one side of the source is offset against
     the other, and left in place it makes eps1 and eps2 KK inconsistent over a wide range
-    (the constrained model spreads the misfit), hiding any genuine fault. The side kept as
-    measured is the one holding more of the source's points in overlap with other sources
-    (Flag.OVERLAP: there the merge checked the source against the others); with no overlap
-    on either side, the side with more points. The other side is shifted additively by the
-    jump in the component that jumped (n or k for sources written as n,k, then eps is
-    recomputed). Shifts of several steps commute, since each moves a whole side.
+    (the constrained model spreads the misfit), hiding any genuine fault. Only the shorter
+    side (fewer points; on a tie the higher-energy side) is shifted, additively by the jump
+    in the component that jumped (n or k for sources written as n,k, then eps is
+    recomputed), so that the fewest values move. A step is not levelled, and its record
+    says why (``applied`` False), when the shorter side
+
+    * has points in overlap with other sources (Flag.OVERLAP): there the merge checked the
+      source against the others, and shifting the longer side instead would move more
+      values than the step explains;
+    * for a step in k or eps2, holds values printed as 0 or within one unit of their last
+      digit of 0 (:func:`kkcheck.clean.precision.near_zero`): below a band gap k is a bound,
+      and no level shift may lift it off zero.
+
+    Steps in n or eps1 never change k or eps2. Plateaus (kind ``"plateau"``, two opposite
+    jumps bounding a local fault) are never levelled. Shifts of several steps commute,
+    since each moves a whole side.
     Common practice for detector changeovers, no published source.
     """
     eps = np.array(spectrum.eps)
     names = {n: i for i, n in enumerate(spectrum.source_names)}
     records = []
     for st in sorted((o for o in steps if o.kind == "step"), key=lambda o: o.energy_ev):
-        idx = np.flatnonzero(spectrum.source == names[st.source])
+        s = names[st.source]
+        idx = np.flatnonzero(spectrum.source == s)
         pos = int(np.searchsorted(idx, st.index))
         below, above = idx[:pos], idx[pos:]
         keep_below, reason = _kept_side(spectrum, below, above)
-        shift, sign = (above, -1.0) if keep_below else (below, 1.0)
+        (shift, kept), sign = ((above, below), -1.0) if keep_below else ((below, above), 1.0)
         jump = st.value - st.expected
-        eps[shift] = _shifted(eps[shift], st.component, sign * jump)
+        refused = _refusal(spectrum, s, shift, kept, st.component)
+        if refused is None:
+            eps[shift] = _shifted(eps[shift], st.component, sign * jump)
         records.append(
             StepCorrection(
                 energy_ev=float(st.energy_ev),
@@ -318,7 +414,8 @@ def level_steps(
                 relative=float(jump / st.value) if st.value else float("nan"),
                 kept="below" if keep_below else "above",
                 points=int(shift.size),
-                reason=f"the {'lower' if keep_below else 'higher'}-energy side {reason}",
+                reason=refused or f"the {'lower' if keep_below else 'higher'}-energy side {reason}",
+                applied=refused is None,
             )
         )
     return spectrum.replace(eps=eps), tuple(records)
@@ -380,15 +477,18 @@ def level_steps_if_better(
     score = test(current)
     records = []
     order = sorted(steps, key=lambda o: -abs(o.value - o.expected) / max(abs(o.value), 1e-300))
-    for i, st in enumerate(order):
+    tried = 0
+    for st in order:
         trial, (rec,) = level_steps(current, [st])
-        if i >= max_trials:
+        if not rec.applied:  # refused by the levelling rules: nothing to try
+            records.append(rec)
+            continue
+        if tried >= max_trials:
             records.append(
-                dataclasses.replace(
-                    rec, applied=False, reason=f"not tried (> {max_trials} steps)"
-                )
+                dataclasses.replace(rec, applied=False, reason=f"not tried (> {max_trials} steps)")
             )
             continue
+        tried += 1
         trial_score = test(trial)
         if trial_score.chi2_dof < score.chi2_dof:
             current, score = trial, trial_score
