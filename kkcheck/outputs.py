@@ -458,14 +458,19 @@ def _write_files(result: JobResult, out: Path, protect, command: str) -> None:
         write_text(txt, parameter_table(result.fit.model), overwrite_protect=protect)
     if result.repair is not None:
         _write_repaired(result, out, prov, protect)
-        changes = result.repair.changes_frame()
+        from .changes import change_record, record_frame
+
+        changes = record_frame(change_record(result))
         for c in changes.columns:
             if changes[c].dtype == object:
                 changes[c] = changes[c].map(spreadsheet_safe)
         text = (
-            f"# kkcheck {__version__}: every value the repair replaced or added\n"
-            "# reason: spike / step (replaced by the KK-consistent prediction from the other "
-            "data), fill (gap), ...; old is nan for added points\n"
+            f"# kkcheck {__version__}: every value of repaired.csv that differs from the input "
+            "as read (kkcheck.changes.change_record), with the stage(s) and reason(s)\n"
+            "# reason: scale_offset / blend (merge), level (step levelling), binned, spike / "
+            "step / kk_region / model (replaced by the KK-consistent prediction), fill (gap), "
+            "combined (several measurements at one energy); old is nan for added points, new "
+            "is nan for points folded into a bin\n"
             + changes.to_csv(index=False, lineterminator="\n")
         )
         write_text(out / "repair_changes.csv", text, overwrite_protect=protect)

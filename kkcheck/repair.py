@@ -22,11 +22,26 @@ contribute, so where the model's eps2 is exactly zero its propagated eps2 band i
 absorption is needed here", not a measurement); the band is therefore floored at
 max(1e-4 |eps|, 1e-6), the noise floor of every stage (:func:`kkcheck.noise.noise_floor`).
 
+Calibration of the band (local cross-validation): the propagated band alone can be far too
+narrow or too wide inside a gap (it knows the data noise and the basis, not how well the
+basis interpolates that stretch). So the ceil(L/2) measured points on each side of every run
+of L model values (a gap fill or a replaced spike) are withheld as well, the model is
+refitted once, and the factor c is chosen so that 95 % of the withheld values lie within
++-2 c sqrt(band^2 + sigma^2) of the prediction; the band of model values is then
+c sqrt(band^2 + sigma^2), with sigma the data noise interpolated there. The widened run lies
+where the run itself lies, so the calibration sees the same structure the fill has to
+rebuild. With fewer than 12 withheld values the band stays the propagated one and a note says
+it is not calibrated; beyond the measured window it is extrapolated (noted). The method is
+K-fold cross-validation restricted to the neighbourhood of each run (Stone 1974).
+
 References
 ----------
 .. [1] A. B. Kuzmenko, "Kramers–Kronig constrained variational analysis of optical spectra,"
    Rev. Sci. Instrum. 76, 083108 (2005) (the KK-constrained basis model); see
    docs/references.md [Kuzmenko2005].
+.. [2] M. Stone, "Cross-validatory choice and assessment of statistical predictions,"
+   J. R. Stat. Soc. B 36(2), 111-147 (1974) (withheld data to assess a prediction; from
+   memory).
 """
 
 from __future__ import annotations
@@ -279,7 +294,8 @@ def repair(
     r1, r2, reason, in_region = _replace_masks(spectrum, kk_result, policy)
     model = _refit_model(spectrum, kk_result, r1 | r2, policy)
     mod = model.eps(grid)
-    band1, band2 = model.eps_sigma(grid)
+    band1, band2, cal_notes = _calibrated_band(spectrum, kk_result, model, grid, r1 | r2, policy)
+    notes.extend(cal_notes)
     floor = noise_floor(mod)
     table = _Table(
         eps=np.array(mod),
@@ -333,6 +349,114 @@ def _refit_model(
         spectrum.energy_ev, spectrum.eps, kk_result.sigma_eps1, kk_result.sigma_eps2, weights
     )
     return fit.model
+
+
+#: Target of the band calibration: this fraction of withheld values within +-2 band.
+BAND_COVERAGE = 0.95
+#: Fewest withheld values for a calibration; below, the band is propagated only (a note).
+MIN_CALIBRATION_VALUES = 12
+#: Largest share of the weighted points withheld in one calibration refit.
+MAX_WITHHELD_SHARE = 0.25
+
+
+def _model_runs(spectrum: Spectrum, grid: np.ndarray, replaced: np.ndarray):
+    """(low, high, length) of each run of model values inside the window (gaps, replaced
+    points): energies [eV] of its first and last grid point and its number of grid points."""
+    pick, match = _match_grid(grid, spectrum.energy_ev)
+    measured = np.zeros(grid.size, bool)
+    measured[pick[match & ~replaced]] = True
+    lo, hi = spectrum.range_ev
+    modelled = ~measured & (grid >= lo) & (grid <= hi)
+    runs, start = [], None
+    for g, m in enumerate(np.append(modelled, False)):
+        if m and start is None:
+            start = g
+        elif not m and start is not None:
+            runs.append((float(grid[start]), float(grid[g - 1]), g - start))
+            start = None
+    return runs
+
+
+def _neighbours(spectrum: Spectrum, weights: np.ndarray, runs) -> np.ndarray:
+    """Indices of the ceil(length / 2) weighted data points on each side of every run (the run
+    widened to twice its length; longest runs first, at most MAX_WITHHELD_SHARE of the
+    weighted points)."""
+    e = spectrum.energy_ev
+    idx = np.nonzero(weights > 0)[0]
+    budget = int(MAX_WITHHELD_SHARE * idx.size)
+    held: list[np.ndarray] = []
+    for lo, hi, length in sorted(runs, key=lambda r: -r[2]):
+        n = (length + 1) // 2
+        below = idx[e[idx] < lo][-n:]
+        above = idx[e[idx] > hi][:n]
+        if sum(h.size for h in held) + below.size + above.size > budget:
+            break
+        held += [below, above]
+    return np.unique(np.concatenate(held)) if held else np.zeros(0, int)
+
+
+def _calibration(spectrum, kk_result, weights, runs):
+    """Band factor c: BAND_COVERAGE of the withheld neighbours within +-2 c (band, noise).
+
+    Returns (c, or None when fewer than MIN_CALIBRATION_VALUES values could be withheld;
+    the number of values).
+    """
+    held = _neighbours(spectrum, weights, runs)
+    if 2 * held.size < MIN_CALIBRATION_VALUES:
+        return None, 2 * held.size
+    w = weights.copy()
+    w[held] = 0.0
+    fit = kk_result.model.refit(
+        spectrum.energy_ev, spectrum.eps, kk_result.sigma_eps1, kk_result.sigma_eps2, w
+    )
+    e = spectrum.energy_ev[held]
+    pred, y = fit.model.eps(e), spectrum.eps[held]
+    b1, b2 = fit.model.eps_sigma(e)
+    z = np.concatenate(
+        [
+            np.abs(pred.real - y.real) / np.hypot(b1, kk_result.sigma_eps1[held]),
+            np.abs(pred.imag - y.imag) / np.hypot(b2, kk_result.sigma_eps2[held]),
+        ]
+    )
+    z = z[np.isfinite(z)]
+    if z.size < MIN_CALIBRATION_VALUES:
+        return None, int(z.size)
+    return float(np.quantile(z, BAND_COVERAGE) / 2.0), int(z.size)
+
+
+def _calibrated_band(spectrum, kk_result, model, grid, replaced, policy):
+    """The model band on ``grid``, calibrated by predicting withheld measured values.
+
+    Returns (band1, band2, notes). See the Notes of :func:`repair` for the method.
+    """
+    b1, b2 = model.eps_sigma(grid)
+    runs = _model_runs(spectrum, grid, replaced) if policy != "model" else []
+    if not runs:
+        return b1, b2, []
+    suspicious = (spectrum.flags & (int(Flag.SPIKE) | int(Flag.STEP))) != 0
+    weights = np.where(replaced | suspicious, 0.0, 1.0)
+    c, used = _calibration(spectrum, kk_result, weights, runs)
+    if c is None:
+        return (
+            b1,
+            b2,
+            [
+                f"band not calibrated: only {used} values could be withheld to test it (at "
+                f"least {MIN_CALIBRATION_VALUES}); it is the propagated fit uncertainty and may "
+                "be too narrow"
+            ],
+        )
+    s1 = np.interp(grid, spectrum.energy_ev, kk_result.sigma_eps1)
+    s2 = np.interp(grid, spectrum.energy_ev, kk_result.sigma_eps2)
+    note = (
+        f"band calibrated on {used} measured values beside the {len(runs)} modelled run(s), "
+        f"withheld and predicted: the propagated band (with the data noise) x{c:.3g}, so "
+        f"that {100 * BAND_COVERAGE:g} % of them lie within +-2 band"
+    )
+    lo, hi = spectrum.range_ev
+    if np.any((grid < lo) | (grid > hi)):
+        note += "; beyond the measured window the band is extrapolated, not calibrated"
+    return c * np.hypot(b1, s1), c * np.hypot(b2, s2), [note]
 
 
 @dataclass

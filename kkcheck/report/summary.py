@@ -68,7 +68,10 @@ def build_summary(result) -> dict:
     if reflectance:
         summary["reflectance"] = [r.to_dict() for r in reflectance]
     if result.repair is not None:
+        from ..changes import change_record, record_counts
+
         summary["repair"] = result.repair.to_dict()
+        summary["repair"]["recorded_changes"] = record_counts(change_record(result))
     if result.fit is not None:
         summary["fit"] = result.fit.to_dict()
     if result.slab is not None:
