@@ -81,7 +81,10 @@ def test_arrays_and_datasets(checked):
     ds = checked.datasets[0]
     from_pair = kkcheck.check((np.asarray(ds.energy_ev), np.asarray(ds.eps)))
     np.testing.assert_array_equal(from_pair.datasets[0].eps, ds.eps)
-    assert from_pair.kk.chi2_dof == pytest.approx(checked.kk.chi2_dof, rel=1e-9)
+    # arrays carry no printed digits (Dataset.value_quantum), so the rounding part of the
+    # noise floor is missing: the same verdict, chi2 within a few per cent
+    assert from_pair.kk.verdict == checked.kk.verdict
+    assert from_pair.kk.chi2_dof == pytest.approx(checked.kk.chi2_dof, rel=0.05)
     from_ds = kkcheck.check(ds)
     assert from_ds.kk.chi2_dof == pytest.approx(checked.kk.chi2_dof, rel=1e-9)
     mixed = kkcheck.check([ds, (ds.energy_ev[::-1], ds.eps[::-1] * 1.0)])

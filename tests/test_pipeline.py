@@ -141,7 +141,8 @@ def test_lorentz_oscillator_fit_recovers_its_parameters(tmp_path):
         + "\n"
     )
     res = kkcheck.fit([str(p)], out_dir=tmp_path / "o")
-    (term,) = [t for t in res.model_json["terms"] if t.get("kind") in ("lorentz", "modified_lorentz")]
+    terms = res.model_json["terms"]
+    (term,) = [t for t in terms if t.get("kind") in ("lorentz", "modified_lorentz")]
     assert term["w0_ev"] == pytest.approx(2.0, rel=5e-3)
     assert term["gamma_ev"] == pytest.approx(0.2, rel=2e-2)
 

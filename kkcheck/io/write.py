@@ -215,8 +215,8 @@ def _frame_of(data) -> tuple[pd.DataFrame, Dataset | None]:
 
 
 #: Significant digits of an axis converted from eV on writing (the conversion's relative
-#: round-off is ~1e-16; 12 digits keep every digit a table of measured data can carry).
-AXIS_DIGITS = 12
+#: round-off is ~1e-16, in the 16th-17th digit; 15 digits drop it and keep 5e-15 relative).
+AXIS_DIGITS = 15
 #: Axis header where the canonical name is not a spelling the reader accepts.
 _AXIS_HEADER = {"angular_frequency_rad_s": "angular_frequency_rad/s"}
 
