@@ -11,8 +11,12 @@ find_spikes, Outlier (:mod:`.outliers`)
     Hampel identifier on leave-one-out local polynomial residuals; :class:`Outlier` records
     (energy, source, component, kind, size).
 find_steps, level_steps, level_steps_if_better, StepCorrection (:mod:`.steps`)
-    Jumps the local trend does not explain; one side of a source shifted to meet the other,
-    kept on trial only when a score (the KK misfit) drops.
+    Jumps the local trend does not explain (two opposite ones bounding a local fault are
+    one ``"plateau"``, never levelled); the shorter side of a source shifted to meet the
+    other, kept on trial only when a score (the KK misfit) drops.
+component_rounding, rounding_margin, near_zero, PRECISION_UNITS (:mod:`.precision`)
+    Printed precision in n,k or eps1,eps2 units, the margin a spike or step must exceed,
+    and the zero bounds (k printed as 0) that levelling never lifts.
 smooth, SmoothResult (:mod:`.smooth`)
     LOWESS (any grid) or Savitzky–Golay (uniform grids only); raw values kept beside.
 apply_policy (:mod:`.policy`)
@@ -50,10 +54,15 @@ from ..options import DOWNWEIGHT_FACTOR
 from .core import CleanResult, clean
 from .outliers import Outlier, find_spikes
 from .policy import apply_policy
+from .precision import PRECISION_UNITS, component_rounding, near_zero, rounding_margin
 from .smooth import SmoothResult, smooth
 from .steps import StepCorrection, find_steps, level_steps, level_steps_if_better
 
 __all__ = [
+    "PRECISION_UNITS",
+    "component_rounding",
+    "near_zero",
+    "rounding_margin",
     "StepCorrection",
     "level_steps",
     "level_steps_if_better",

@@ -139,7 +139,16 @@ def clean(
     spikes = find_spikes(spectrum, threshold=spike_threshold)
     steps = find_steps(spectrum, threshold=step_threshold, ignore=spikes)
     outliers = tuple(sorted(spikes + steps, key=lambda o: (o.energy_ev, o.kind, o.component)))
-    notes = [f"{len(spikes)} spike(s) and {len(steps)} step(s) flagged; no point removed"]
+    plateaus = [o for o in steps if o.kind == "plateau"]
+    notes = [
+        f"{len(spikes)} spike(s) and {len(steps) - len(plateaus)} step(s) flagged; "
+        "no point removed"
+    ]
+    notes += [
+        f"plateau in {o.component} of {o.source} over {o.energy_ev:.4g}-{o.end_energy_ev:.4g} eV "
+        f"(jump {o.value - o.expected:+.3g}, back at its end): a local fault, never levelled"
+        for o in plateaus
+    ]
     filled, fill_notes = _filled_sigma(spectrum)
     notes += fill_notes
     out = apply_policy(

@@ -273,7 +273,12 @@ def find_spikes(
       leaves over several neighbouring points raises S_i (a spike, one or two points,
       does not raise a median of seven); S_i counts only above twice the noise scale
       because a MAD of seven values scatters widely;
-    * windows end at steps, so a jump is not reported as two spikes.
+    * windows end at steps, so a jump is not reported as two spikes;
+    * the printed precision bounds what rounding can do: s_i is floored at the rounding
+      standard uncertainty u (q / sqrt(12), from the Spectrum's rounding fields), and
+      |r_i| must exceed max(3 q, (q/2)(1 + sum_j |c_j|)) for both degrees, with c_j the
+      weights of the prediction (:func:`kkcheck.clean.precision.rounding_margin`), so a
+      value half a unit of its last digit off a smooth trend is never a spike.
 
     Measured on 2000-point spectra with planted spikes of 10-30 sigma (Tauc–Lorentz, Rakić
     gold and fused silica as n,k; a Lorentz oscillator as eps): all found within 2 samples,

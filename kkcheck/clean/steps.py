@@ -195,7 +195,8 @@ def find_steps(
     -------
     tuple of Outlier
         ``kind == "step"``, ``index`` the first point after the jump, ``value - expected``
-        the jump [component units], ``size`` the jump in sigmas.
+        the jump [component units], ``size`` the jump in sigmas; or ``kind == "plateau"``
+        for two neighbouring opposite jumps (see Notes).
 
     Notes
     -----
@@ -209,6 +210,22 @@ def find_steps(
     below max_misfit * s (the points on both sides follow a smooth trend plus one jump,
     not a peak or an edge) and |J|/sd(J) is the largest within +-window gaps. Typical
     cause: a detector or grating changeover, which shifts one side by a few percent.
+
+    Printed precision: the noise level s is floored at the rounding standard uncertainty u
+    of the points (q / sqrt(12) for a last printed digit of unit q, from the Spectrum's
+    rounding fields, taken back to n and k for an n,k source), and |J| must exceed
+    max(3 q, (q/2) sum_j |c_j|), with J = sum_j c_j y_j the least-squares jump
+    (:func:`kkcheck.clean.precision.rounding_margin`): the worst that rounding alone can do
+    to J. A smooth curve printed with few digits is a staircase whose risers are one unit
+    of the last digit; they are not steps, however small the scatter between them (the
+    chord noise of a staircase is nearly zero, which once gave 1e6-1e8 sigma "steps").
+
+    Plateaus: two neighbouring jumps of one component with opposite signs, the second
+    undoing the first to within :data:`PLATEAU_RETURN` of the larger, bound a run of
+    points lifted or lowered against both sides: a local fault, not a calibration offset of
+    one side. They are returned as one ``"plateau"`` record (energy range, jump into it)
+    and never levelled (:func:`level_steps` only shifts ``"step"`` records), because
+    shifting one outer side to meet the plateau would move the values that were right.
     On clean noisy spectra (the materials of :func:`kkcheck.clean.find_spikes`, plus a
     narrow phonon) the largest |J|/sd(J) seen was 7.3, hence the default threshold of 8.
 
