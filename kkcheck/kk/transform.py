@@ -4,8 +4,10 @@ Tabulated data are read as their piecewise-linear (PL) interpolant, zero outside
 window [x_0, x_M]; the transforms return the exact KK partner of that PL function (the
 closed form of :mod:`kkcheck.kk.kernels`), either as a dense sum evaluated in bounded-memory
 chunks (``method="exact"``) or by the O(N log N) splitting of :mod:`kkcheck.kk.fastkk`
-(``method="fast"``). ``method="auto"`` takes the fast path for N >= :data:`FAST_MIN_POINTS`
-data points when at least :data:`FAST_MIN_TARGETS` targets lie inside the window.
+(``method="fast"``; exact Toeplitz/Hankel FFTs when the nodes are equally spaced and the
+targets are the nodes). ``method="auto"`` takes whichever path the calibrated cost model
+:func:`path_costs` predicts faster (the fast path from ~700 points on); there is no dense
+fallback for large N.
 
 Conventions: photon energy [eV], time dependence exp(-i w t), eps = eps1 + i eps2, eps2 >= 0.
 
@@ -27,11 +29,13 @@ import numpy as np
 
 from ..errors import InputError
 from .checks import check_axis, check_targets
-from .fastkk import MAX_GRID_POINTS, choose_split_length, grid_points, pl_kink_sum_fast
+from .fastkk import is_uniform, pl_kink_sum_fast, pl_kink_sum_uniform
 
 __all__ = [
-    "FAST_MIN_POINTS",
-    "FAST_MIN_TARGETS",
+    "DENSE_S_PER_PAIR",
+    "FAST_S_FIXED",
+    "FAST_S_PER_POINT",
+    "path_costs",
     "eps2_to_eps1",
     "eps1_to_eps2",
     "k_to_n_minus_1",
@@ -40,10 +44,14 @@ __all__ = [
     "dc_sigma_from_low_energy",
 ]
 
-#: ``method="auto"`` uses the fast path from this many data points on.
-FAST_MIN_POINTS = 5_000
-#: ... and only when at least this many targets lie inside the window (else dense is cheaper).
-FAST_MIN_TARGETS = 200
+#: Cost model of ``method="auto"`` (:func:`path_costs`), measured once with
+#: ``benchmarks/kk_bench.py`` (t_dense, t_fast at 1e3-1e5 points) on 2 cores, one BLAS
+#: thread: seconds per (target, node) pair of the dense closed form ...
+DENSE_S_PER_PAIR = 1.5e-8
+#: ... fixed seconds of one fast call (planning, small FFTs, Python overhead) ...
+FAST_S_FIXED = 5.0e-3
+#: ... and seconds per source or target of the fast path (grids, near field, FFTs).
+FAST_S_PER_POINT = 1.5e-6
 #: Elements of one dense (targets x nodes) block: 2 MB per float64 temporary (cache-sized,
 #: which measured 2x faster than 16 MB blocks); peak memory stays ~10 MB.
 _CHUNK_ELEMENTS = 262_144
@@ -72,29 +80,46 @@ def _kink_sum_exact(x, c, w, sign) -> np.ndarray:
     return out
 
 
-def _kink_sum(x, c, w, sign, method: str) -> np.ndarray:
+def path_costs(n_nodes: int, n_targets: int) -> tuple[float, float]:
+    """Predicted seconds of the dense and the fast path for N nodes and K targets.
+
+    Parameters
+    ----------
+    n_nodes, n_targets : int
+        N data points and K targets.
+
+    Returns
+    -------
+    (float, float)
+        (dense, fast) in seconds, from the cost model calibrated once on 2 cores (numpy/scipy,
+        one BLAS thread): dense = :data:`DENSE_S_PER_PAIR` N K; fast = :data:`FAST_S_FIXED` +
+        :data:`FAST_S_PER_POINT` (2 N + K) (2N: the sources are mirrored).
+    """
+    dense = DENSE_S_PER_PAIR * float(n_nodes) * float(n_targets)
+    fast = FAST_S_FIXED + FAST_S_PER_POINT * (2.0 * n_nodes + n_targets)
+    return dense, fast
+
+
+def _use_fast(n_nodes: int, n_targets: int, method: str) -> bool:
     if method not in ("auto", "exact", "fast"):
         raise ValueError("method must be 'auto', 'exact' or 'fast'")
-    inside = (w > x[0]) & (w < x[-1])
-    use_fast = method == "fast" or (
-        method == "auto" and x.size >= FAST_MIN_POINTS and inside.sum() >= FAST_MIN_TARGETS
-    )
-    if not use_fast or inside.sum() == 0:
+    if method != "auto":
+        return method == "fast"
+    dense, fast = path_costs(n_nodes, n_targets)
+    return fast < dense
+
+
+def _kink_sum(x, c, w, sign, method: str, *, at_nodes: bool = False) -> np.ndarray:
+    """sum_j c_j [phi(w + x_j) + sign phi(w - x_j)] by the path the cost model prefers."""
+    if not _use_fast(x.size, w.size, method):
         return _kink_sum_exact(x, c, w, sign)
-    split = choose_split_length(x, w[inside])
-    if grid_points(x, w[inside], split) > MAX_GRID_POINTS:
-        warnings.warn(
-            f"fast KK path skipped: a window {x[0]:.3g}-{x[-1]:.3g} eV spans too many decades "
-            "for its uniform grid; using the dense closed form (slower)",
-            RuntimeWarning,
-            stacklevel=3,
-        )
-        return _kink_sum_exact(x, c, w, sign)
-    out = np.empty(w.size)
-    out[inside] = pl_kink_sum_fast(x, c, w[inside], sign, split_ev=split)
-    if (~inside).any():  # targets outside the window: dense (usually a handful)
-        out[~inside] = _kink_sum_exact(x, c, w[~inside], sign)
-    return out
+    if at_nodes and is_uniform(x):
+        return pl_kink_sum_uniform(x, c, sign)  # exact Toeplitz + Hankel FFTs
+    return pl_kink_sum_fast(x, c, w, sign)
+
+
+def _same(w: np.ndarray, x: np.ndarray) -> bool:
+    return w.shape == x.shape and bool(np.array_equal(w, x))
 
 
 def _log_abs(u) -> np.ndarray:
@@ -122,12 +147,10 @@ def eps2_to_eps1(energy_ev, eps2, at_ev=None, *, method="auto", dc_sigma_ev=0.0)
     at_ev : array_like, optional
         Where to evaluate [eV] (default: ``energy_ev``).
     method : {"auto", "exact", "fast"}
-        Dense closed form in bounded-memory blocks, the O(N log N) splitting
+        Dense closed form in bounded-memory blocks, the O(N log N) multilevel splitting
         (:func:`kkcheck.kk.fastkk.pl_kink_sum_fast`; measured agreement with the dense
-        form 1e-13 to 2e-12 of max|result|, tested to 1e-9), or fast for
-        N >= FAST_MIN_POINTS (5000) points with >= 200 targets inside the window. Targets
-        outside the window always use the dense form; the fast path warns and falls back
-        when the window spans too many decades for its uniform grid.
+        form 1e-12 to 3e-10 of max|result|, tested to 1e-9, for any window, many decades
+        included), or the one :func:`path_costs` predicts faster.
     dc_sigma_ev : float
         sigma0/eps0 expressed in eV (wp^2/gamma for a Drude term) [eV]. When non-zero, eps2
         below the window is extrapolated as the DC term dc_sigma_ev/E (exact contribution
@@ -168,7 +191,7 @@ def eps2_to_eps1(energy_ev, eps2, at_ev=None, *, method="auto", dc_sigma_ev=0.0)
     x, y = check_axis(energy_ev, eps2, "eps2")
     w = check_targets(at_ev, x)
     c = _slope_changes(x, y)
-    s = _kink_sum(x, c, w, -1, method)
+    s = _kink_sum(x, c, w, -1, method, at_nodes=_same(w, x))
     ends = _end_term(-y[0], _log_abs(w**2 - x[0] ** 2) + 2.0)
     ends += _end_term(y[-1], _log_abs(w**2 - x[-1] ** 2) + 2.0)
     out = (s + ends) / np.pi
@@ -221,7 +244,7 @@ def eps1_to_eps2(
     x, y = check_axis(energy_ev, eps1_minus_inf, "eps1 - eps_inf")
     w = check_targets(at_ev, x)
     c = _slope_changes(x, y)
-    s = _kink_sum(x, c, w, +1, method)
+    s = _kink_sum(x, c, w, +1, method, at_nodes=_same(w, x))
     ends = _end_term(y[0], _log_abs(x[0] - w) - _log_abs(x[0] + w))
     ends += _end_term(-y[-1], _log_abs(x[-1] - w) - _log_abs(x[-1] + w))
     out = (s + ends) / np.pi
@@ -286,7 +309,7 @@ def phase_of_log_amplitude(energy_ev, log_amplitude, at_ev=None, *, method="auto
     x, y = check_axis(energy_ev, log_amplitude, "log-amplitude")
     w = check_targets(at_ev, x)
     c = _slope_changes(x, y)
-    return _kink_sum(x, c, w, +1, method) / np.pi
+    return _kink_sum(x, c, w, +1, method, at_nodes=_same(w, x)) / np.pi
 
 
 def dc_sigma_from_low_energy(energy_ev, eps2, n_points: int = 10) -> float:
