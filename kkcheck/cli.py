@@ -169,6 +169,18 @@ def _add_fit_options(p: argparse.ArgumentParser) -> None:
         help="film thickness [nm] for the slab check of the fit (default: 100)",
     )
     g.add_argument(
+        "--slab-tolerance",
+        type=float,
+        metavar="X",
+        help="fit for the film: fewest pairs whose R and T stay within X of the data's",
+    )
+    g.add_argument(
+        "--substrate-n", type=float, metavar="N", help="film on a thick substrate of index N"
+    )
+    g.add_argument(
+        "--incoherent", action="store_true", help="the film is incoherent (no fringes)"
+    )
+    g.add_argument(
         "--frequency-unit",
         choices=("eV", "rad/s"),
         default="eV",
@@ -285,9 +297,13 @@ def _options_from_args(args) -> dict:
         "pairs",
         "tol",
         "thickness_nm",
+        "slab_tolerance",
+        "substrate_n",
         "frequency_unit",
     )
     opts = {k: getattr(args, k) for k in keys if getattr(args, k, None) is not None}
+    if getattr(args, "incoherent", False):
+        opts["coherent"] = False
     if getattr(args, "no_correction", False):
         opts["correct"] = False
     if getattr(args, "force_correction", False):

@@ -118,6 +118,13 @@ class JobOptions:
         ``"eV"`` or ``"rad/s"`` for model.json.
     thickness_nm : float
         Film thickness for the slab check [nm].
+    slab_tolerance : float or None
+        Aim the fit at the film (``thickness_nm``, ``substrate_n``, ``coherent``): the fewest
+        pairs whose R and T stay within this of the data's (None: the plain eps fit).
+    substrate_n : float or None
+        Constant index of a thick substrate under the film (None: free-standing).
+    coherent : bool
+        Coherent film (fringes) or incoherent (free-standing only).
     html : bool
         Write the HTML report, Markdown summary and figures.
     title : str
@@ -148,6 +155,9 @@ class JobOptions:
     chi2_target: float = 1.5
     frequency_unit: FrequencyUnitChoice = "eV"
     thickness_nm: float = 100.0
+    slab_tolerance: float | None = None
+    substrate_n: float | None = None
+    coherent: bool = True
     html: bool = False
     title: str = "kkcheck report"
     range_ev: tuple[float, float] | None = None
@@ -250,7 +260,12 @@ CONFIG_SECTIONS = {
         "chi2_target": "chi2_target",
         "frequency_unit": "frequency_unit",
     },
-    "slab": {"thickness_nm": "thickness_nm"},
+    "slab": {
+        "thickness_nm": "thickness_nm",
+        "tolerance": "slab_tolerance",
+        "substrate_n": "substrate_n",
+        "coherent": "coherent",
+    },
     "report": {"html": "html"},
 }
 _TOP_KEYS = {"title", "out", "inputs", *CONFIG_SECTIONS}

@@ -179,12 +179,13 @@ def _fit_stage(analysed: Spectrum, kk, options: JobOptions, say):
     from .rational import fit_pole_pairs
     from .rational.data import fit_points
     from .repair import repair
-    from .slab import compare_slab_over
+    from .slab import FilmSpec, compare_slab_over
 
     say("repairing")
     repaired = repair(analysed, kk, policy=options.flag_policy.repair_choice)
     say("fitting pole pairs")
     pts = fit_points(repaired, kk.regions, options.flag_policy)
+    film = FilmSpec(options.thickness_nm, options.substrate_n, options.coherent)
     fitted = fit_pole_pairs(
         pts.energy_ev,
         pts.eps,
@@ -193,10 +194,12 @@ def _fit_stage(analysed: Spectrum, kk, options: JobOptions, say):
         pairs=options.pairs,
         tol=options.tol,
         chi2_target=options.chi2_target,
+        film=film if options.slab_tolerance is not None else None,
+        slab_tolerance=options.slab_tolerance or 0.01,
     )
     say("slab check")
     slab = compare_slab_over(
-        fitted.range_ev, repaired.energy_ev, repaired.eps, fitted.model, options.thickness_nm
+        fitted.range_ev, repaired.energy_ev, repaired.eps, fitted.model, film=film
     )
     return repaired, fitted, slab
 

@@ -16,7 +16,7 @@ References
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -75,6 +75,8 @@ class FitResult:
         Whether the conductor term (pole at s = 0) was included.
     warnings : tuple of str
         Everything the fit warned about, also emitted as RuntimeWarning.
+    device : kkcheck.rational.device.DeviceOutcome or None
+        For a device-aimed fit (``film=``): the film, the tolerance and the R/T reached.
     """
 
     model: PolePairModel
@@ -89,6 +91,7 @@ class FitResult:
     range_ev: tuple
     conductor: bool
     warnings: tuple
+    device: object | None = None
 
     def to_dict(self, weighting: str = WEIGHTING) -> dict:
         """The "fit" block of summary.json: plain JSON-safe values.
@@ -115,6 +118,15 @@ class FitResult:
             "range_ev": [json_float(self.range_ev[0]), json_float(self.range_ev[1])],
             "weighting": weighting,
             "notes": list(self.warnings),
+            "eps_inf": json_float(self.model.eps_inf),
+            "certificate": {
+                "method": self.passivity.method,
+                "margin_rel": json_float(self.passivity.margin_rel),
+                "min_eps2": json_float(self.passivity.min_eps2),
+                "exact_roots": self.passivity.exact_roots,
+            },
+            "rms_rel_unconstrained": json_float(self.enforcement.rms_rel_before),
+            "device": None if self.device is None else self.device.to_dict(),
         }
 
 
@@ -186,6 +198,8 @@ def fit_pole_pairs(
     max_pairs=12,
     enforce_passivity=True,
     chi2_target=None,
+    film=None,
+    slab_tolerance=0.01,
 ) -> FitResult:
     """Fit a stable pole-pair model with few entries and a whole-axis passivity certificate.
 
@@ -212,7 +226,14 @@ def fit_pole_pairs(
     max_pairs : int
         Largest number of starting entries tried.
     enforce_passivity : bool
-        Repair a non-passive fit by residue perturbation (poles fixed).
+        Re-solve the residues of every candidate under the passivity constraints (poles
+        fixed) so that the returned model is passive by construction.
+    film : kkcheck.slab.FilmSpec, optional
+        Aim the fit at this film: weights from :func:`~kkcheck.rational.device.device_weights`
+        (sigma ignored) and the fewest entries whose R and T stay within ``slab_tolerance``
+        (:func:`~kkcheck.rational.device.device_search`). Default: the plain eps fit.
+    slab_tolerance : float
+        Largest accepted |dR| and |dT| of the film (with ``film``).
 
     Returns
     -------
@@ -271,13 +292,22 @@ def fit_pole_pairs(
         max_entries=cap,
     )
     target = Target(tol, chi2_target, bool(enforce_passivity))
-    if pairs is not None:
+    device = None
+    if film is not None:
+        from .device import device_search, device_weights
+
+        if not (slab_tolerance > 0):
+            raise InputError("slab_tolerance must be > 0")
+        s1, s2 = device_weights(w, e, film, float(slab_tolerance))
+        data = replace(data, weight1=1 / s1, weight2=1 / s2, have_sigma=True)
+        search, device = device_search(data, (w, e), film, float(slab_tolerance), max_pairs)
+    elif pairs is not None:
         search = fixed_order_search(data, int(pairs), bool(enforce_passivity))
     elif tol is not None or have_sigma:
         search = target_search(data, target, int(max_pairs))
     else:
         search = bic_search(data, int(max_pairs), bool(enforce_passivity))
-    result = _result(data, target, search, tuple(notes))
+    result = replace(_result(data, target, search, tuple(notes)), device=device)
     for msg in result.warnings:
         warnings.warn(msg, RuntimeWarning, stacklevel=2)
     return result

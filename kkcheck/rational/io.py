@@ -11,6 +11,7 @@ from ..errors import InputError
 from ..options import FrequencyUnitChoice, check_choice
 from ..units import HBAR_EV_S
 from .model import PolePairModel, physical_terms
+from .vfit import EPS_INF_MIN
 
 __all__ = [
     "ModelRecord",
@@ -104,10 +105,23 @@ def model_to_dict(result, frequency_unit: str = "eV") -> dict:
             "min_eps2": float(cert.min_eps2),
             "method": cert.method,
             "crossing_energies_ev": [float(x) for x in cert.crossing_energies_ev],
+            "margin_rel": _finite(cert.margin_rel),
+            "exact_roots": cert.exact_roots,
+            "decided_for": "the eV parameters as stored (float64); a rad/s export is "
+            "rounded once more, which can matter only when margin_rel is near 0",
         },
         "stable": bool(result.stable),
         "terms": [{"kind": t.kind, **t.as_dict()} for t in physical_terms(m)],
+        "eps_inf_bound": EPS_INF_MIN,
+        "device": None if result.device is None else result.device.to_dict(),
+        "note": None
+        if cert.certified
+        else "NOT CERTIFIED PASSIVE: not a fit to use in a time-domain solver",
     }
+
+
+def _finite(x: float):
+    return float(x) if np.isfinite(x) else None
 
 
 def model_to_json(result, frequency_unit: str = "eV") -> str:

@@ -568,6 +568,7 @@ def enforce_passivity(
                 continue
             break
         theta_cur = rinv @ (y0 + z)
+        theta_cur[0] = max(theta_cur[0], EPS_INF_MIN)  # round-off of the bound; eps2 unchanged
         cur = model_from_vector(theta_cur, poles, cond)
         n_con = g.shape[0]
         cert = certify_passivity(cur)

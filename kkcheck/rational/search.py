@@ -67,6 +67,10 @@ __all__ = [
 
 #: Widening ratios tried for sharp pairs above the band (damping beta/10, then beta/5).
 WIDENING_RATIOS = (10.0, 5.0)
+#: Largest rms growth the passivity step may cost a candidate (passive rms / unconstrained rms
+#: with the same poles) for it to be chosen: costlier ones mean the poles are wrong for a
+#: passive model, and another order does better (issue 11 acceptance figure; our choice).
+PASSIVE_COST = 1.5
 #: Label suffix of a table row whose kept fit is the widened refit.
 WIDENED_SUFFIX = ", widened above the band"
 
@@ -245,7 +249,8 @@ def _evaluate(data: FitData, n: int, start: Start, enforce: bool = True) -> Cand
     linear constraints eps2 >= 0 on a refined grid and eps_inf >= EPS_INF_MIN
     (:func:`enforce_if_needed`, :func:`_made_passive`); the row then gives the errors of that
     passive fit, with the unconstrained rms beside it (``rms_rel_free``). A fit with more
-    entries than ``data.max_entries`` stays in the table but is never chosen.
+    entries than ``data.max_entries``, or whose passive rms exceeds PASSIVE_COST x the
+    unconstrained one with the same poles, stays in the table but is never chosen.
     """
     cert = certify(start.model)
     rms, mx, chi2, bic, npar = data.metrics(start.model)
@@ -269,7 +274,7 @@ def _made_passive(data: FitData, raw: Candidate) -> Candidate:
     rms, mx, chi2, bic, npar = data.metrics(model)
     row = replace(
         raw.row, n_pairs=model.n_pairs, n_params=npar, rms_rel=rms, max_rel=mx, chi2_dof=chi2,
-        bic=bic, certified=_ok(data, model, cert),
+        bic=bic, certified=_ok(data, model, cert) and rms <= PASSIVE_COST * raw.row.rms_rel,
     )  # fmt: skip
     return Candidate(row, model, cert, enf)
 
