@@ -8,7 +8,8 @@ n,k source the eps rounding is taken back to n and k here.
 References
 ----------
 .. [1] JCGM 100:2008, "Evaluation of measurement data - Guide to the expression of
-   uncertainty in measurement", section 4.3.7 (rectangular distribution; from memory).
+   uncertainty in measurement", section 4.3.7 (rectangular distribution; from memory);
+   docs/references.md [PrintedPrecision].
 """
 
 from __future__ import annotations
