@@ -68,8 +68,18 @@ def _fit_title(e, rel, fit_range_ev) -> str:
     return "Pole-pair model against data"
 
 
+def _plot_k(ax, e, k_data, k_fit, style) -> None:
+    """k of data and model on a log axis: small k is what a time-domain solver gets wrong."""
+    pos_d, pos_f = k_data > 0, k_fit > 0
+    ax.plot(e[pos_d], k_data[pos_d], color=DATA_COLOUR, alpha=0.7, **style)
+    ax.plot(e[pos_f], k_fit[pos_f], color=MODEL_COLOUR, zorder=3)
+    if np.any(pos_d) or np.any(pos_f):
+        ax.set_yscale("log")
+    ax.set_ylabel("k (log)")
+
+
 def plot_fit(path_stem, energy_ev, eps_data, eps_fit, fit_range_ev=None) -> Path:
-    """Rational-model fit against the data, with the relative error below.
+    """Rational-model fit against the data as eps1, eps2, n, k (log axis), relative error.
 
     Parameters
     ----------
@@ -99,23 +109,26 @@ def plot_fit(path_stem, energy_ev, eps_data, eps_fit, fit_range_ev=None) -> Path
     with np.errstate(divide="ignore", invalid="ignore"):
         rel = 100.0 * np.abs(f - d) / np.abs(d)
     with matplotlib.rc_context(STYLE):
-        fig = new_figure(6.4)
-        axes = fig.subplots(3, 1, sharex=True, height_ratios=[2.0, 2.0, 1.4])
+        fig = new_figure(10.0)
+        axes = fig.subplots(5, 1, sharex=True, height_ratios=[2.0, 2.0, 1.6, 1.8, 1.4])
         style = scatter_style(len(e))
+        nd, nf = np.sqrt(d), np.sqrt(f)  # principal root: k >= 0 where eps2 >= 0
         for ax, y, m, name in (
-            (axes[0], d.real, f.real, "1"),
-            (axes[1], d.imag, f.imag, "2"),
+            (axes[0], d.real, f.real, r"$\varepsilon_1$"),
+            (axes[1], d.imag, f.imag, r"$\varepsilon_2$"),
+            (axes[2], nd.real, nf.real, "n"),
         ):
             ax.plot(e, y, color=DATA_COLOUR, alpha=0.7, label="data", **style)
             ax.plot(e, m, color=MODEL_COLOUR, label="model", zorder=3)
-            ax.set_ylabel(rf"$\varepsilon_{name}$")
+            ax.set_ylabel(name)
         axes[1].axhline(0.0, color="#888888", linewidth=0.6, zorder=0)
+        _plot_k(axes[3], e, nd.imag, nf.imag, style)
         finite = np.isfinite(rel) & (rel > 0)
-        axes[2].plot(e[finite], rel[finite], color=PALETTE[0], linewidth=1.1)
+        axes[4].plot(e[finite], rel[finite], color=PALETTE[0], linewidth=1.1)
         if np.any(finite):
-            axes[2].set_yscale("log")
-            axes[2].yaxis.set_major_formatter(mticker.FuncFormatter(num_label))
-        axes[2].set_ylabel("relative\nerror [%]")
+            axes[4].set_yscale("log")
+            axes[4].yaxis.set_major_formatter(mticker.FuncFormatter(num_label))
+        axes[4].set_ylabel("relative\nerror [%]")
         lo, hi = energy_limits(e)
         extrap = fit_range_ev is not None and _shade_outside(axes, lo, hi, fit_range_ev)
         set_energy_axis(list(axes), lo, hi)
