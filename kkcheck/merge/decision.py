@@ -86,7 +86,10 @@ class ShapeCheck:
 
     def where(self) -> str:
         """The disagreeing ranges in words, e.g. ``"eps2 at 0.64-1.2 eV"``."""
-        return ", ".join(f"{c} at {a:.3g}-{b:.3g} eV" for a, b, c in self.disagree_ev)
+        return ", ".join(
+            f"{c} at {a:.3g} eV" if f"{a:.3g}" == f"{b:.3g}" else f"{c} at {a:.3g}-{b:.3g} eV"
+            for a, b, c in self.disagree_ev
+        )
 
 
 @dataclass(frozen=True)
