@@ -15,6 +15,8 @@ data (:mod:`.data`)
     plot_sources, plot_repaired
 Kramers–Kronig test (:mod:`.kk`)
     plot_kk, plot_residuals
+MSKK view of the KK test (:mod:`.mskk`)
+    plot_mskk
 model (:mod:`.fit`)
     plot_fit, plot_passivity, plot_slab
 
@@ -25,6 +27,7 @@ Shared: :mod:`.style` (size, resolution, the Okabe-Ito palette, rc settings, sav
 from .data import plot_repaired, plot_sources
 from .fit import plot_fit, plot_passivity, plot_slab
 from .kk import plot_kk, plot_residuals
+from .mskk import plot_mskk
 from .style import FIGURE_DPI
 
 __all__ = [
@@ -32,6 +35,7 @@ __all__ = [
     "plot_sources",
     "plot_kk",
     "plot_residuals",
+    "plot_mskk",
     "plot_repaired",
     "plot_fit",
     "plot_passivity",
