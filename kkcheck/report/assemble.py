@@ -141,18 +141,57 @@ def _model_figures(result, fig_dir: Path) -> list[ReportFigure]:
     return out
 
 
+def _mskk_figure(view, fig_dir: Path) -> ReportFigure:
+    """The MSKK view's figure; the caption says what the anchors are and what the hold-out found."""
+    path = figures.plot_mskk(
+        fig_dir / "kk_mskk",
+        view.energy_ev,
+        view.eps1_measured,
+        view.sigma_eps1,
+        view.eps1_mskk,
+        view.sigma_mskk,
+        view.anchors_ev,
+        view.anchors_eps1,
+        holdout_ev=view.holdout_ev,
+        holdout_residual=view.holdout_residual,
+        holdout_z=view.holdout_z,
+        regions=view.regions_ev,
+    )
+    at = ", ".join(f"{a:.4g}" for a in view.anchors_ev)
+    if np.isfinite(view.holdout_z):
+        ok = abs(view.holdout_z) <= _Z_THRESHOLD
+        held = (
+            f" The anchor at {view.holdout_ev:.4g} eV was held out and predicted from the "
+            f"others: measured − predicted = {view.holdout_residual:+.3g} "
+            f"({view.holdout_z:+.1f}σ), "
+            + ("within ±3σ." if ok else "NOT within ±3σ: the anchors and eps2 disagree.")
+        )
+    else:
+        held = " Fewer than two anchors: nothing was held out, so the anchors are unchecked."
+    return ReportFigure(
+        path,
+        "eps1 rebuilt from the measured eps2 by multiply subtractive KK (absorption outside "
+        "the window from the basis fit), with ±2σ bands. Anchors (diamonds) are energies where "
+        f"the reconstruction is pinned to the measured eps1, here {at} eV "
+        f"(rule: {view.rule}).{held} Bottom: (measured − MSKK)/combined σ with the ±3 lines.",
+        "Multiply subtractive KK",
+    )
+
+
 def report_figures(result, fig_dir) -> list[ReportFigure]:
     """Draw every figure of ``result`` (a :class:`kkcheck.result.JobResult`) into ``fig_dir``.
 
     Returns
     -------
     list of ReportFigure
-        In report order: sources, KK reconstruction, residuals, and when present the repair,
-        the fit, passivity and the slab check.
+        In report order: sources, KK reconstruction, residuals, and when present the MSKK
+        view, the repair, the fit, passivity and the slab check.
     """
     fig_dir = Path(fig_dir)
     fig_dir.mkdir(parents=True, exist_ok=True)
     out = _data_figures(result, fig_dir) + _kk_figures(result, fig_dir)
+    if getattr(result, "mskk", None) is not None:
+        out.append(_mskk_figure(result.mskk, fig_dir))
     if result.repair is not None:
         out.append(_repair_figure(result, fig_dir))
     if result.fit is not None:
