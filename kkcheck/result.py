@@ -170,7 +170,7 @@ class JobResult:
             kinds[o["kind"]] = kinds.get(o["kind"], 0) + 1
         if kinds:
             lines.append(
-                "  flagged: "
+                "  flagged points: "
                 + ", ".join(f"{v} {k}{'s' if v > 1 else ''}" for k, v in kinds.items())
             )
         for c in self.steps:
@@ -191,15 +191,20 @@ class JobResult:
     def _kk_lines(self) -> list[str]:
         kk = self.kk
         n = len(kk.regions)
+        text = getattr(kk, "verdict_text", "") or kk.verdict
+        if text.startswith(kk.verdict):  # the verdict word in capitals, then its size
+            text = kk.verdict.upper() + text[len(kk.verdict) :]
         lines = [
-            f"KK test: {kk.verdict.upper()} (chi2/dof {kk.chi2_dof:.3g}, "
-            f"{n} region{'s' if n != 1 else ''})"
+            f"KK test: {text} (chi2/dof {kk.chi2_dof:.3g}, "
+            f"{n} inconsistent region{'s' if n != 1 else ''})"
         ]
         for r in kk.regions:
+            size = getattr(r, "deviation_rel", float("nan"))
+            size_txt = f"{100 * size:.2g} % of |eps|, " if size == size else ""
             lines.append(
-                f"  {r.component} inconsistent {r.from_ev:.4g}-{r.to_ev:.4g} eV "
+                f"  inconsistent region: {r.component} {r.from_ev:.4g}-{r.to_ev:.4g} eV "
                 f"({HC_EV_NM / r.to_ev:.0f}-{HC_EV_NM / r.from_ev:.0f} nm), "
-                f"peak {r.severity:.1f} sigma"
+                f"{size_txt}peak {r.severity:.1f} sigma"
             )
         return lines
 
@@ -240,7 +245,8 @@ def _short_repr(r: JobResult) -> str:
     parts = [
         f"{len(r.datasets)} source{'s' if len(r.datasets) != 1 else ''}",
         f"{n_pts} points",
-        f"KK {r.kk.verdict} (chi2/dof {r.kk.chi2_dof:.3g}, {len(r.kk.regions)} regions)",
+        f"KK {r.kk.verdict} (chi2/dof {r.kk.chi2_dof:.3g}, "
+        f"{len(r.kk.regions)} inconsistent region{'s' if len(r.kk.regions) != 1 else ''})",
     ]
     if r.fit is not None:
         cert = "certified passive" if r.fit.passivity.certified else "NOT certified passive"

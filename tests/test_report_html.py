@@ -216,7 +216,8 @@ def test_verdict_and_cautions_come_before_tables(figure_png):
     assert "professional judgment" in caution
     # converted sign convention is stated up front
     assert "exp(+iwt)" in page[i_verdict:i_caution]
-    sections = ("sources", "flags", "kk", "sumrules", "model", "slab", "figures", "provenance")
+    # the evidence first (issue 16): figures right after the verdict and the cautions
+    sections = ("figures", "sources", "flags", "kk", "sumrules", "model", "slab", "provenance")
     order = [page.index(f'<section id="{s}"') for s in sections]
     assert order == sorted(order)
 

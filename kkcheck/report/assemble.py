@@ -62,6 +62,9 @@ def _kk_figures(result, fig_dir: Path) -> list[ReportFigure]:
         kk.eps2_model,
         regions,
         kk.verdict,
+        sigma1=kk.sigma_eps1,
+        sigma2=kk.sigma_eps2,
+        verdict_text=getattr(kk, "verdict_text", ""),
     )
     res_png = figures.plot_residuals(
         fig_dir / "kk_residuals", spec.energy_ev, kk.resid1, kk.resid2, _Z_THRESHOLD, regions
@@ -71,12 +74,13 @@ def _kk_figures(result, fig_dir: Path) -> list[ReportFigure]:
             kk_png,
             "Merged data against the KK-consistent reconstruction (nonnegative "
             "piecewise-linear eps2 basis extending beyond the window); inconsistent regions "
-            "shaded.",
+            "shaded; the bottom panel zooms on the worst one, data with ±1σ bars.",
             "Kramers–Kronig reconstruction",
         ),
         ReportFigure(
             res_png,
-            "(data − reconstruction)/σ for eps1 and eps2, with the ±3σ lines.",
+            "(data − reconstruction)/σ for eps1 and eps2 on a linear scale, with the ±3σ "
+            "lines; residuals beyond the axis are triangles on its edge.",
             "Normalised residuals",
         ),
     ]
@@ -84,23 +88,47 @@ def _kk_figures(result, fig_dir: Path) -> list[ReportFigure]:
 
 def _repair_figure(result, fig_dir: Path) -> ReportFigure:
     rep, spec = result.repair, result.analysed
-    changed = (np.asarray(rep.flags) & int(Flag.REPLACED | Flag.FILLED)) != 0
+    replaced, filled = _repair_masks(rep)
     path = figures.plot_repaired(
         fig_dir / "repaired",
         rep.energy_ev,
         rep.eps,
         rep.sigma_eps1,
         rep.sigma_eps2,
-        changed,
+        replaced,
         spec.energy_ev,
         spec.eps,
+        filled_mask=filled,
     )
     return ReportFigure(
         path,
-        "KK-consistent repair with its ±1σ band; replaced and filled points "
-        "circled, raw merged data in grey.",
+        "KK-consistent repair with its ±1σ band (its half-width in the bottom panel); "
+        "points replaced by the KK prediction circled, points filled inside a gap as "
+        "squares (counted as points, as in the Repair table); merged data in grey.",
         "Repaired spectrum",
     )
+
+
+def _repair_masks(rep) -> tuple[np.ndarray, np.ndarray]:
+    """(replaced, filled) point masks of the repair grid: one source for figure and table."""
+    flags = np.asarray(rep.flags)
+    filled = (flags & int(Flag.FILLED)) != 0
+    replaced = ((flags & int(Flag.REPLACED)) != 0) & ~filled
+    return replaced, filled
+
+
+def _passivity_grid(fit) -> tuple[np.ndarray, np.ndarray]:
+    """1 meV - 1 keV grid with the certificate's minimum energy in it, and eps2 there.
+
+    The figure's title reads the smallest eps2 on its grid; putting the certificate's
+    ``min_energy_ev`` on the grid makes the title and the Model table show one number (the
+    certificate's), instead of a sampled one that is larger.
+    """
+    wide = np.geomspace(1e-3, 1e3, 2000)
+    e_min = float(getattr(fit.passivity, "min_energy_ev", np.nan))
+    if np.isfinite(e_min) and e_min > 0:
+        wide = np.union1d(wide, [e_min])
+    return wide, fit.model.eps(wide).imag
 
 
 def _slab_figure(slab, fig_dir: Path) -> ReportFigure:
@@ -127,10 +155,10 @@ def _model_figures(result, fig_dir: Path) -> list[ReportFigure]:
             "Pole-pair model against the data",
         )
     ]
-    wide = np.geomspace(1e-3, 1e3, 2000)
+    wide, eps2_wide = _passivity_grid(f)
     out.append(
         ReportFigure(
-            figures.plot_passivity(fig_dir / "passivity", wide, f.model.eps(wide).imag, f.range_ev),
+            figures.plot_passivity(fig_dir / "passivity", wide, eps2_wide, f.range_ev),
             "eps2 of the model from 1 meV to 1 keV; any negative value (gain) "
             "would be filled red. The certificate covers the whole axis.",
             "Passivity at a glance",
@@ -248,9 +276,13 @@ def _cautions(result) -> list[str]:
 
 
 def _repair_rows(rep) -> dict:
+    """The Repair table: points (as in the figure's legend) and values (eps1, eps2 apart)."""
+    replaced, filled = _repair_masks(rep)
     return {
-        "points": len(rep.energy_ev),
-        "values changed": len(rep.changes),
+        "grid points": len(rep.energy_ev),
+        "points replaced by the KK prediction": int(replaced.sum()),
+        "points filled inside gaps": int(filled.sum()),
+        "values changed (eps1 and eps2 counted apart)": len(rep.changes),
         **{f"note {i + 1}": n for i, n in enumerate(rep.notes)},
     }
 
@@ -259,6 +291,10 @@ def _model_block(result) -> dict:
     from ..rational.model import physical_terms
 
     model = dict(result.model_json)
+    cert = result.fit.passivity
+    if "passivity" in model and np.isfinite(getattr(cert, "min_energy_ev", np.nan)):
+        # where the certificate's min eps2 lies: the passivity figure marks the same point
+        model["passivity"] = {**model["passivity"], "min_energy_ev": cert.min_energy_ev}
     model["equivalents"] = [
         {"kind": t.kind, **t.as_dict()} for t in physical_terms(result.fit.model)
     ]

@@ -28,6 +28,8 @@ __all__ = [
     "all_cautions",
     "source_rows",
     "pair_rows",
+    "REGION_HEADERS",
+    "region_cells",
     "write_document",
 ]
 
@@ -155,8 +157,17 @@ def key_numbers(ctx: ReportContext) -> list[tuple[str, str]]:
         out.append(("noise, median σ(ε₁)", fmt(noise, 3)))
     if as_number(kk.get("chi2_dof")) is not None:
         out.append(("χ²/dof", fmt(kk["chi2_dof"], 3)))
+    if as_number(kk.get("deviation_max_percent")) is not None:
+        tol = as_number(kk.get("tolerance_percent"))
+        out.append(
+            (
+                "largest deviation [% of |ε|]",
+                fmt(kk["deviation_max_percent"], 3)
+                + (f" (tolerance {fmt(tol, 3)})" if tol is not None else ""),
+            )
+        )
     if "regions" in kk:
-        out.append(("flagged regions", str(len(kk.get("regions") or ()))))
+        out.append(("inconsistent regions", str(len(kk.get("regions") or ()))))
     if ctx.outliers is not None:
         out.append(("flagged points", str(len(ctx.outliers))))
     window = data_window_ev(ctx)
@@ -221,6 +232,35 @@ def source_rows(ctx: ReportContext) -> list[dict]:
             }
         )
     return rows
+
+
+#: Columns of the region tables (HTML and Markdown), in the order of :func:`region_cells`.
+REGION_HEADERS = (
+    "from [eV]",
+    "to [eV]",
+    "component",
+    "deviation [% of |ε|]",
+    "peak [σ]",
+    "strength",
+    "max |Δn|",
+    "max |Δk|",
+    "found as",
+)
+
+
+def region_cells(r: Mapping) -> list[str]:
+    """Plain-text cells of one region (``kk.regions`` entry of summary.json)."""
+    return [
+        fmt(r.get("from_ev")),
+        fmt(r.get("to_ev")),
+        fmt(r.get("component")),
+        fmt(r.get("deviation_percent"), 3),
+        fmt(r.get("severity"), 3),
+        fmt(r.get("label")),
+        fmt(r.get("dn_max"), 3),
+        fmt(r.get("dk_max"), 3),
+        fmt(r.get("origin")),
+    ]
 
 
 def pair_rows(model: Mapping) -> list[dict]:

@@ -14,11 +14,13 @@ from pathlib import Path
 
 from .context import ReportContext
 from .format import (
+    REGION_HEADERS,
     all_cautions,
     fmt,
     fmt_range,
     key_numbers,
     pair_rows,
+    region_cells,
     source_rows,
     verdict_word,
     write_document,
@@ -90,29 +92,28 @@ def _done(ctx: ReportContext) -> list[str]:
 
 
 def _verdict(ctx: ReportContext) -> list[str]:
-    """The verdict word, the key numbers and the flagged regions."""
+    """The verdict word and phrase, the key numbers and the inconsistent regions."""
     lines = ["## Verdict", "", f"**{_m(verdict_word(ctx))}**", ""]
+    text = (ctx.kk or {}).get("verdict_text")
+    if text:
+        lines += [_m(text), ""]
     nums = key_numbers(ctx)
     if nums:
         lines += _md_table(["quantity", "value"], [[_m(k), _m(v)] for k, v in nums])
         lines.append("")
-    regions = (ctx.kk or {}).get("regions") or ()
-    if regions:
-        lines.append("Flagged regions:")
-        lines.append("")
-        lines += _md_table(
-            ["from [eV]", "to [eV]", "component", "severity"],
-            [
-                [
-                    _m(fmt(r.get("from_ev"))),
-                    _m(fmt(r.get("to_ev"))),
-                    _m(fmt(r.get("component"))),
-                    _m(fmt(r.get("severity"))),
-                ]
-                for r in regions
-            ],
-        )
-        lines.append("")
+    kk = ctx.kk or {}
+    for key, head in (
+        ("regions", "Inconsistent regions"),
+        ("regions_within_tolerance", "Significant but below the tolerance (not counted)"),
+    ):
+        regions = kk.get(key) or ()
+        if regions:
+            lines += [f"{head}:", ""]
+            lines += _md_table(
+                [_m(h) for h in REGION_HEADERS],
+                [[_m(c) for c in region_cells(r)] for r in regions],
+            )
+            lines.append("")
     return lines
 
 

@@ -30,7 +30,14 @@ __all__ = [
     "verdict_colour",
     "linestyle_for",
     "scatter_style",
+    "LOG_SPAN",
+    "wants_log_values",
+    "eps2_log_axis",
 ]
+
+#: A panel of eps2 (or k) goes on a log axis when its positive values span more than this
+#: ratio (weak absorption is invisible on a linear axis; common practice, no source).
+LOG_SPAN = 100.0
 
 
 def energy_limits(*arrays) -> tuple[float, float]:
@@ -216,3 +223,33 @@ def shade_regions(axes, regions) -> bool:
             )
             shaded = True
     return shaded
+
+
+def wants_log_values(y) -> bool:
+    """True when >= 90 % of ``y`` is positive and the positive values span > LOG_SPAN.
+
+    Where more than a tenth of the values are zero or negative (a transparent range printed
+    as k = 0, noise around zero) a log axis would hide them and magnify the noise: linear.
+    """
+    y = np.asarray(y, dtype=float)
+    pos = y[np.isfinite(y) & (y > 0)]
+    return pos.size >= 0.9 * max(y.size, 1) and pos.size > 1 and pos.max() > LOG_SPAN * pos.min()
+
+
+def eps2_log_axis(ax, y) -> str:
+    """Put ``ax`` on a log y axis when :func:`wants_log_values`; returns the note drawn ("").
+
+    Values <= 0 cannot be shown on a log axis: the panel then says how many were left out and
+    its y label says "log scale", so nobody reads a missing point as absent data.
+    """
+    if not wants_log_values(y):
+        return ""
+    y = np.asarray(y, dtype=float)
+    ax.set_yscale("log", nonpositive="mask")
+    label = ax.get_ylabel()
+    ax.set_ylabel(f"{label} (log scale)" if label else "log scale")
+    n_out = int(np.sum(np.isfinite(y) & (y <= 0)))
+    note = f"{n_out} point(s) with ε₂ ≤ 0 not drawn (log axis)" if n_out else "log scale"
+    if n_out:
+        ax.text(0.01, 0.03, note, transform=ax.transAxes, fontsize=7, color="#555555")
+    return note

@@ -14,7 +14,14 @@ import numpy as np
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from .axes import component_panels, energy_limits, linestyle_for, set_energy_axis, shade_spans
+from .axes import (
+    component_panels,
+    energy_limits,
+    eps2_log_axis,
+    linestyle_for,
+    set_energy_axis,
+    shade_spans,
+)
 from .style import (
     FLAG_COLOUR,
     GAP_COLOUR,
@@ -27,7 +34,7 @@ from .style import (
     save,
 )
 
-__all__ = ["plot_sources", "plot_repaired"]
+__all__ = ["plot_sources", "plot_repaired", "CHANGE_MARKERS"]
 
 
 def _draw_sources(ax1, ax2, sources) -> tuple[dict, list]:
@@ -140,7 +147,8 @@ def plot_sources(
         kinds_seen = _draw_flags((ax1, ax2), outliers, by_name)
         ax1.set_ylabel(r"$\varepsilon_1$ (real part)")
         ax2.set_ylabel(r"$\varepsilon_2$ (imaginary part)")
-        ax2.axhline(0.0, color="#888888", linewidth=0.6, zorder=1)
+        if not eps2_log_axis(ax2, np.concatenate([v[2] for v in by_name.values()])):
+            ax2.axhline(0.0, color="#888888", linewidth=0.6, zorder=1)
         lo, hi = energy_limits(*all_e)
         set_energy_axis([ax1, ax2], lo, hi)
         handles, labels = ax1.get_legend_handles_labels()
@@ -150,11 +158,22 @@ def plot_sources(
         return save(fig, path_stem)
 
 
-def _draw_repaired_panel(ax, e, y, s, raw_e, raw_y, mask, n_changed: int, name: str) -> None:
-    """One panel: raw data (grey dots), the +-1 sigma band, the repair, the changed points."""
+#: Markers of the repair's kinds of change (label, marker, face colour, edge colour).
+CHANGE_MARKERS = {
+    "replaced": ("replaced by the KK prediction", "o", "none", FLAG_COLOUR),
+    "filled": ("filled inside a gap (no data)", "s", "none", PALETTE[2]),
+}
+
+
+def _draw_repaired_panel(ax, e, y, s, raw_e, raw_y, kinds: dict, name: str) -> None:
+    """One panel: measured data (grey dots), the +-1 sigma band, the repair, the changes.
+
+    ``kinds`` maps ``"replaced"``/``"filled"`` to a boolean mask on ``e``; each kind has its
+    own marker and legend entry, with its number of points.
+    """
     if raw_y is not None:
         ax.plot(
-            raw_e, raw_y, ".", color="#8A8A8A", markersize=3, label="data before repair", zorder=2
+            raw_e, raw_y, ".", color="#8A8A8A", markersize=3, label="measured (merged)", zorder=2
         )
     if s is not None:
         ax.fill_between(
@@ -164,23 +183,40 @@ def _draw_repaired_panel(ax, e, y, s, raw_e, raw_y, mask, n_changed: int, name: 
             color=PALETTE[0],
             alpha=0.25,
             linewidth=0,
-            label=r"$\pm 1\sigma$",
+            label=r"repair $\pm 1\sigma$",
             zorder=1,
         )
     ax.plot(e, y, color=PALETTE[0], label="repaired", zorder=3)
-    if n_changed:
+    for kind, mask in kinds.items():
+        n = int(mask.sum())
+        if not n:
+            continue
+        label, marker, face, edge = CHANGE_MARKERS[kind]
         ax.plot(
             e[mask],
             y[mask],
-            "o",
-            mfc="none",
-            mec=FLAG_COLOUR,
+            marker,
+            mfc=face,
+            mec=edge,
             mew=1.1,
             markersize=4.5,
-            label=f"changed ({n_changed})",
+            linestyle="none",
+            label=f"{label} ({n} points)",
             zorder=4,
         )
     ax.set_ylabel(rf"$\varepsilon_{name}$")
+
+
+def _draw_band_panel(ax, e, s1, s2) -> None:
+    """The +-1 sigma half-width of eps1 and eps2 (log axis when it spans a factor 3)."""
+    for s, name, colour in ((s1, "1", PALETTE[0]), (s2, "2", PALETTE[1])):
+        if s is not None:
+            ax.plot(e, s, color=colour, label=rf"$\sigma(\varepsilon_{name})$")
+    pos = np.concatenate([a[np.isfinite(a) & (a > 0)] for a in (s1, s2) if a is not None])
+    if pos.size and pos.max() > 3 * pos.min():
+        ax.set_yscale("log")
+    ax.set_ylabel(r"band half-width $\sigma$")
+    ax.legend(loc="best", ncols=2)
 
 
 def plot_repaired(
@@ -192,8 +228,16 @@ def plot_repaired(
     changed_mask=None,
     raw_energy_ev=None,
     raw_eps=None,
+    *,
+    filled_mask=None,
 ) -> Path:
-    """The repaired spectrum with its +-1 sigma band, the raw data, and changed points.
+    """The repaired spectrum with its +-1 sigma band, the measured data, and the changes.
+
+    Replaced points (red circles) and points filled inside a gap (green squares) have their
+    own markers and legend entries, each with its number of points (a point counts once
+    whether one or both of eps1, eps2 changed). With a sigma, a bottom panel shows the band's
+    half-width on a log axis, since at full scale the band is usually thinner than the line.
+    eps2 goes on a log axis when it spans more than :data:`.axes.LOG_SPAN`.
 
     Parameters
     ----------
@@ -206,9 +250,12 @@ def plot_repaired(
     sigma1, sigma2 : array or None
         Standard uncertainty of eps1 and eps2 of the repair (dimensionless).
     changed_mask : bool array or None
-        True where the repair replaced or filled a point; drawn as red circles.
+        True where the repair replaced a measured value (or, without ``filled_mask``, any
+        changed point: all are then drawn as "replaced").
     raw_energy_ev, raw_eps : array or None
         The merged data before repair [eV], complex; drawn as grey dots.
+    filled_mask : bool array or None
+        True where the repair added a point inside a gap; drawn as squares.
 
     Returns
     -------
@@ -220,25 +267,38 @@ def plot_repaired(
     s1 = None if sigma1 is None else real_array(sigma1, "sigma1")
     s2 = None if sigma2 is None else real_array(sigma2, "sigma2")
     mask = None if changed_mask is None else np.asarray(changed_mask, dtype=bool)
-    same_length(e, eps=z, sigma1=s1, sigma2=s2, changed_mask=mask)
+    filled = None if filled_mask is None else np.asarray(filled_mask, dtype=bool)
+    same_length(e, eps=z, sigma1=s1, sigma2=s2, changed_mask=mask, filled_mask=filled)
     re_ = None if raw_energy_ev is None else real_array(raw_energy_ev, "raw_energy_ev")
     rz = None if raw_eps is None else complex_array(raw_eps, "raw_eps")
     if (re_ is None) != (rz is None):
         raise ValueError("raw_energy_ev and raw_eps must be given together")
     if re_ is not None:
         same_length(re_, raw_eps=rz)
+    kinds = {}
+    if mask is not None:
+        kinds["replaced"] = mask & ~filled if filled is not None else mask
+    if filled is not None:
+        kinds["filled"] = filled
+    band = s1 is not None or s2 is not None
     with matplotlib.rc_context(STYLE):
-        fig = new_figure(5.6)
-        axes = fig.subplots(2, 1, sharex=True)
-        n_changed = int(mask.sum()) if mask is not None else 0
+        fig = new_figure(7.0 if band else 5.6)
+        axes = list(
+            fig.subplots(
+                3 if band else 2, 1, sharex=True, height_ratios=(1.0, 1.0, 0.6) if band else None
+            )
+        )
         for ax, y, s, ry, name in (
             (axes[0], z.real, s1, None if rz is None else rz.real, "1"),
             (axes[1], z.imag, s2, None if rz is None else rz.imag, "2"),
         ):
-            _draw_repaired_panel(ax, e, y, s, re_, ry, mask, n_changed, name)
-        axes[1].axhline(0.0, color="#888888", linewidth=0.6, zorder=0)
+            _draw_repaired_panel(ax, e, y, s, re_, ry, kinds, name)
+        if not eps2_log_axis(axes[1], z.imag):
+            axes[1].axhline(0.0, color="#888888", linewidth=0.6, zorder=0)
+        if band:
+            _draw_band_panel(axes[2], e, s1, s2)
         lo, hi = energy_limits(e, re_)
-        set_energy_axis(list(axes), lo, hi)
+        set_energy_axis(axes, lo, hi)
         axes[0].legend(loc="best")
         axes[0].set_title("Repaired (KK-consistent) spectrum with uncertainty")
         return save(fig, path_stem)

@@ -1,4 +1,4 @@
-"""The report page: header, verdict and cautions first, then the sections, then provenance.
+"""The report page: header, verdict, cautions and figures first, then the tables, provenance.
 
 The page has no external reference of any kind: the style sheet (``report.css``, package
 data) is inlined, figures are embedded as data URIs, and the page carries no script.
@@ -25,6 +25,8 @@ def _css() -> str:
 def _sections(ctx: ReportContext, prov: Mapping) -> list[tuple[str, str, str]]:
     """(id, heading, html) of every section the context has content for, in page order."""
     sections: list[tuple[str, str, str]] = []
+    if ctx.figures:  # the evidence first, right after the verdict and the cautions
+        sections.append(("figures", "Figures", S.section_figures(ctx)))
     if ctx.inputs or (ctx.merge or {}).get("sources"):
         sections.append(("sources", "Sources", S.section_sources(ctx)))
     if ctx.outliers is not None:
@@ -39,8 +41,6 @@ def _sections(ctx: ReportContext, prov: Mapping) -> list[tuple[str, str, str]]:
         sections.append(("model", "Model parameters", S.section_model(ctx)))
     if ctx.slab:
         sections.append(("slab", "Slab check", S.section_slab(ctx)))
-    if ctx.figures:
-        sections.append(("figures", "Figures", S.section_figures(ctx)))
     sections.append(("provenance", "Provenance", S.section_provenance(ctx, prov)))
     return sections
 

@@ -16,6 +16,7 @@ from pathlib import Path
 
 from ..context import ReportContext, library_versions
 from ..format import (
+    REGION_HEADERS,
     all_cautions,
     data_window_ev,
     flatten,
@@ -23,6 +24,7 @@ from ..format import (
     fmt_range,
     key_numbers,
     pair_rows,
+    region_cells,
     source_rows,
     verdict_word,
 )
@@ -70,7 +72,7 @@ def lead_sentence(ctx: ReportContext) -> str:
     if word == "inconsistent":
         return (
             f"The real and imaginary parts disagree beyond the noise{where}, in {n_regions} "
-            f"flagged region{'s' if n_regions != 1 else ''}."
+            f"inconsistent region{'s' if n_regions != 1 else ''}."
         )
     if word == "not tested":
         return "No Kramers–Kronig test was run."
@@ -94,6 +96,12 @@ def _convention_note(conv: Mapping) -> str:
     ).replace("{verb}", "were" if len(which) > 1 else "was")
 
 
+def _verdict_text(ctx: ReportContext) -> str:
+    """The KK verdict in one phrase with its size (``kk.verdict_text``), or ""."""
+    text = (ctx.kk or {}).get("verdict_text")
+    return f'<p class="vtext">{escape(text)}</p>' if text else ""
+
+
 def section_verdict(ctx: ReportContext) -> str:
     """The verdict box: word, lead sentence, key numbers, sign-convention note."""
     word = verdict_word(ctx)
@@ -105,6 +113,7 @@ def section_verdict(ctx: ReportContext) -> str:
     return (
         f'<section id="verdict" class="verdict {cls}">'
         f'<div class="word">{escape(word.upper() if cls != "neutral" else word)}</div>'
+        f"{_verdict_text(ctx)}"
         f'<p class="lead">{escape(lead_sentence(ctx))}</p>'
         f'<ul class="keynums">{nums}</ul>{_convention_note(ctx.convention or {})}</section>'
     )
@@ -167,21 +176,40 @@ def section_flags(ctx: ReportContext) -> str:
 
 
 def section_regions(ctx: ReportContext) -> str:
-    """KK test settings, residual statistics and the inconsistent regions."""
+    """KK test settings, residual statistics, the inconsistent regions and those below the
+    tolerance (significant, but too small to count), each with its size in % of |eps|."""
     kk = ctx.kk or {}
     parts = []
     settings = [(k, kk[k]) for k in _KK_SETTINGS if k in kk]
     if settings:
         parts.append(kv_table(settings, caption="Test settings and residual statistics."))
+    tol = kk.get("tolerance_percent")
+    tol_txt = f" (tolerance {fmt(tol, 3)} %)" if tol is not None else ""
     regions = list(kk.get("regions") or ())
     if regions:
         parts.append(
-            generic_table(
-                regions, caption="Energy ranges where ε₁ and ε₂ disagree beyond the noise."
+            table(
+                REGION_HEADERS,
+                [[escape(c) for c in region_cells(r)] for r in regions],
+                [True, True, False, True, True, False, True, True, False],
+                caption="Inconsistent regions: energy ranges where ε₁ and ε₂ disagree beyond "
+                f"the noise by more than the tolerance{tol_txt}; deviation in % of "
+                "max(|ε|, 1).",
             )
         )
     else:
         parts.append(none_note("No inconsistent regions were found."))
+    small = list(kk.get("regions_within_tolerance") or ())
+    if small:
+        parts.append(
+            table(
+                REGION_HEADERS,
+                [[escape(c) for c in region_cells(r)] for r in small],
+                [True, True, False, True, True, False, True, True, False],
+                caption="Significant beyond the noise but smaller than the tolerance"
+                f"{tol_txt}: not counted in the verdict.",
+            )
+        )
     return "".join(parts)
 
 

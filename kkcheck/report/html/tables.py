@@ -12,7 +12,11 @@ from collections.abc import Iterable, Mapping, Sequence
 
 from ..format import as_number, fmt
 
-__all__ = ["escape", "table", "generic_table", "kv_table", "none_note"]
+__all__ = ["escape", "table", "generic_table", "kv_table", "none_note", "LONG_TABLE_ROWS"]
+
+#: Tables with more rows than this are collapsed in a <details> box (its summary names the
+#: table and its row count), so the verdict and the figures are not buried under them.
+LONG_TABLE_ROWS = 12
 
 
 def escape(value) -> str:
@@ -26,7 +30,10 @@ def table(
     numeric: Sequence[bool] = (),
     caption: str | None = None,
 ) -> str:
-    """A scrollable table; rows are sequences of already-escaped HTML cell contents."""
+    """A scrollable table; rows are sequences of already-escaped HTML cell contents.
+
+    More than :data:`LONG_TABLE_ROWS` rows: the table is collapsed in a ``<details>`` box.
+    """
     num = list(numeric) + [False] * (len(headers) - len(numeric))
     head = "".join(f"<th>{escape(h)}</th>" for h in headers)
     body = []
@@ -36,9 +43,16 @@ def table(
         )
         body.append(f"<tr>{cells}</tr>")
     cap = f"<caption>{escape(caption)}</caption>" if caption else ""
-    return (
+    html_ = (
         f'<div class="tablewrap"><table>{cap}<thead><tr>{head}</tr></thead>'
         f"<tbody>{''.join(body)}</tbody></table></div>"
+    )
+    if len(body) <= LONG_TABLE_ROWS:
+        return html_
+    what = escape(caption) if caption else "Table"
+    return (
+        f'<details class="long"><summary>{what} ({len(body)} rows; click to show)</summary>'
+        f"{html_}</details>"
     )
 
 
