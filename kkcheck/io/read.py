@@ -78,6 +78,7 @@ from .cells import (
     split_all,
     with_decimal_points,
 )
+from .fastpath import fast_read
 from .layout import AXIS_CHOICES, Layout, TableLayout, table_layout
 from .text import Lines, decode, read_bytes, split_lines
 from .values import (
@@ -86,6 +87,7 @@ from .values import (
     check_axis,
     check_magnitude,
     collapse,
+    first_of_runs,
     order_note,
     values_to_eps,
 )
@@ -162,22 +164,18 @@ def read_table(
     shown = str(path)
     raw = read_bytes(p, shown)
     digest = hashlib.sha256(raw).hexdigest()
-    lines, encoding = _text_lines(raw, shown)
-    table = table_layout(lines, axis_opt, quantity_opt, shown, columns)
+    table, parsed, notes = _numbers(raw, shown, axis_opt, quantity_opt, columns)
     lay = table.layout
-    notes = ([] if encoding == "utf-8" else [f"encoding: read as {encoding}"]) + list(table.notes)
-    rows, mark_notes = _cells_with_points(table, shown)
-    notes.extend(mark_notes)
-    parsed = parse_rows(rows, lay, table.delim, shown, table.header_line)
     energy = check_axis(parsed, lay, shown)
     notes.extend(axis_plausibility(energy, parsed, lay, shown))
     eps, s1, s2 = values_to_eps(parsed, lay, shown)
     check_magnitude(eps, energy, parsed.lines, shown)
     eps, used, converted, note = _apply_convention(eps, parsed.v2, lay.quantity, convention)
     notes.extend(note)
-    quantum = _sorted_quantum(energy, parsed)
+    order = np.argsort(energy, kind="stable")
+    quantum = _sorted_quantum(energy, order, parsed)
     energy, eps, s1, s2, rows_out, sort_notes = _sort_and_collapse(
-        energy, eps, s1, s2, parsed, lay, converted, shown
+        energy, order, eps, s1, s2, parsed, lay, converted, shown
     )
     notes.extend(sort_notes)
     if s1 is not None and np.all(np.isnan(s1)) and np.all(np.isnan(s2)):
@@ -198,14 +196,30 @@ def read_table(
     )
 
 
-def _sorted_quantum(energy: np.ndarray, parsed: Parsed) -> np.ndarray | None:
+def _numbers(raw: bytes, shown: str, axis_opt, quantity_opt, columns):
+    """(layout, numbers of the used columns, notes): the fast path when the table is plain
+    (:mod:`kkcheck.io.fastpath`), else the careful row parser, which words every error."""
+    fast = fast_read(raw, shown, axis_opt, quantity_opt, columns) if raw else None
+    if fast is not None:
+        table, parsed, encoding = fast.table, fast.parsed, fast.encoding
+        mark_notes: list[str] = []
+    else:
+        lines, encoding = _text_lines(raw, shown)
+        table = table_layout(lines, axis_opt, quantity_opt, shown, columns)
+        rows, mark_notes = _cells_with_points(table, shown)
+        parsed = parse_rows(rows, table.layout, table.delim, shown, table.header_line)
+    notes = [] if encoding == "utf-8" else [f"encoding: read as {encoding}"]
+    return table, parsed, notes + list(table.notes) + mark_notes
+
+
+def _sorted_quantum(energy: np.ndarray, order: np.ndarray, parsed: Parsed) -> np.ndarray | None:
     """Printed-digit units (N, 2) of the value cells, in the order of the sorted, collapsed
-    points (the first row of each duplicate group, as :func:`_sort_and_collapse` keeps)."""
+    points (the first row of each duplicate group, as :func:`_sort_and_collapse` keeps);
+    ``order`` is the stable sort of ``energy``."""
     if parsed.q1 is None or parsed.q2 is None:
         return None
-    order = np.argsort(energy, kind="stable")
-    _, start = np.unique(energy[order], return_index=True)
-    return np.column_stack([parsed.q1, parsed.q2])[order][start]
+    keep = order[first_of_runs(energy[order])]
+    return np.column_stack([parsed.q1[keep], parsed.q2[keep]])
 
 
 def _cells_with_points(table: TableLayout, shown: str):
@@ -291,18 +305,21 @@ def _apply_convention(eps, imag_written, quantity: str, convention: str):
     return eps, used, converted, notes
 
 
-def _sort_and_collapse(energy, eps, s1, s2, parsed: Parsed, lay: Layout, converted, shown):
-    """Sort by energy and apply the duplicate rule; return arrays, file lines and notes."""
-    order = np.argsort(energy, kind="stable")
+def _sort_and_collapse(energy, order, eps, s1, s2, parsed: Parsed, lay: Layout, converted, shown):
+    """Sort by energy (``order``, stable) and apply the duplicate rule; return arrays, file
+    lines and notes."""
     notes = []
     note = order_note(parsed.axis_values, parsed.lines)
     if note:
         notes.append(note)
-    raw_values = np.column_stack(
-        [parsed.v1, parsed.v2] + ([parsed.s1, parsed.s2] if parsed.s1 is not None else [])
-    )[order]
+    sorted_energy = energy[order]
+    raw_values = None  # the values as written matter only to rows with the same energy
+    if np.any(sorted_energy[1:] == sorted_energy[:-1]):
+        raw_values = np.column_stack(
+            [parsed.v1, parsed.v2] + ([parsed.s1, parsed.s2] if parsed.s1 is not None else [])
+        )[order]
     energy, eps, s1, s2, rows_out, dup_notes = collapse(
-        energy[order],
+        sorted_energy,
         eps[order],
         None if s1 is None else s1[order],
         None if s2 is None else s2[order],

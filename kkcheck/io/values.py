@@ -31,6 +31,7 @@ __all__ = [
     "values_to_eps",
     "order_note",
     "collapse",
+    "first_of_runs",
     "lines_text",
     "axis_plausibility",
     "check_magnitude",
@@ -249,6 +250,18 @@ def order_note(x: np.ndarray, lines: np.ndarray) -> str | None:
     return f"sorted: axis was not monotonic in the file (line {lines[i]} goes back)"
 
 
+def first_of_runs(sorted_values: np.ndarray) -> np.ndarray:
+    """Index of the first element of each run of equal values in a sorted array.
+
+    The same as ``np.unique(x, return_index=True)[1]`` on sorted finite ``x``, without
+    sorting again (1e6 rows).
+    """
+    new = np.empty(sorted_values.size, dtype=bool)
+    new[:1] = True
+    np.not_equal(sorted_values[1:], sorted_values[:-1], out=new[1:])
+    return np.flatnonzero(new)
+
+
 def collapse(energy, eps, s1, s2, lines, raw_values, lay: Layout, conj: bool):
     """Apply the duplicate rule to energy-sorted arrays; return arrays and notes.
 
@@ -256,7 +269,9 @@ def collapse(energy, eps, s1, s2, lines, raw_values, lay: Layout, conj: bool):
     averaged on them, uncertainties combined as sqrt(sum s_i^2)/m in the file's own
     quantity, and the average converted to eps like a single row (conjugated when ``conj``).
     """
-    uniq, start, counts = np.unique(energy, return_index=True, return_counts=True)
+    start = first_of_runs(energy)
+    counts = np.diff(np.append(start, energy.size))
+    uniq = energy[start]
     if uniq.size == energy.size:
         return energy, eps, s1, s2, lines, []
     same_groups, avg_groups = [], []
