@@ -1,9 +1,12 @@
-"""Time of fit + passivity certificate for 1000 noisy points, against scipy's AAA on the same data.
+"""Passive pole-pair fit of 1000 noisy points for a metal, a semiconductor and a glass, beside
+scipy's AAA on the same data, timed in the same process (ratios mean the same on any machine).
 
-Data: Rakic 1998 gold (kkcheck.materials.rakic_ld), 0.5-6 eV, 1000 points, 1e-3 relative complex
-noise. Baseline: scipy.interpolate.AAA on the same samples taken at s = -i w and s = +i w
-(conjugate symmetry), default tolerance. Both run in this process, best of 3. Target: fit +
-certificate under 1 s. Run: python benchmarks/fit_bench.py
+Cases (closed forms in kkcheck.materials): Rakic 1998 Lorentz-Drude gold, 0.5-6 eV; a two-
+oscillator semiconductor (Lorentz terms at 2.6 and 4.4 eV, eps_inf 1.8), 1-3.1 eV; Sellmeier
+fused silica (Malitson 1965), 0.5-6 eV. 1e-3 relative complex noise, sigma = 1e-3 |eps| (the
+noise floor: chi2/dof ~ 1). Baseline: scipy.interpolate.AAA (scipy >= 1.15) on the samples at
+s = -i w and s = +i w (conjugate symmetry), default tolerance. Best of 3. Goal (issue 13):
+< 0.5 s per passive fit at the noise floor. Run: python benchmarks/fit_bench.py
 """
 
 import os
@@ -18,12 +21,7 @@ import numpy as np  # noqa: E402
 from scipy.interpolate import AAA  # noqa: E402
 
 from kkcheck import materials  # noqa: E402
-from kkcheck.rational import (  # noqa: E402
-    PolePairModel,
-    certify_passivity,
-    dense_passivity_check,
-    fit_pole_pairs,
-)
+from kkcheck.rational import dense_passivity_check, fit_pole_pairs  # noqa: E402
 
 
 def best_of(fn, n=3):
@@ -35,16 +33,29 @@ def best_of(fn, n=3):
     return out, best
 
 
-def main():
-    rng = np.random.default_rng(1)
-    w = np.linspace(0.5, 6.0, 1000)
-    e0 = materials.rakic_ld(w)
-    e = e0 * (1 + 1e-3 * (rng.standard_normal(w.size) + 1j * rng.standard_normal(w.size)))
+def _semiconductor(w):
+    return 1.8 + materials.lorentz(w, 1.5, 2.6, 0.25) + materials.lorentz(w, 6.0, 4.4, 0.9)
+
+
+CASES = [
+    ("gold (Rakic 1998)", materials.rakic_ld, (0.5, 6.0)),
+    ("semiconductor (2 Lorentz)", _semiconductor, (1.0, 3.1)),
+    ("glass (Sellmeier silica)", materials.sellmeier_silica, (0.5, 6.0)),
+]
+
+
+def run_case(name, fn, band, rng):
+    w = np.linspace(*band, 1000)
+    e0 = fn(w)
+    if np.all(e0.imag == 0):  # a lossless glass: keep a tiny loss so eps2 > 0 is fit-able
+        e0 = e0 + 1e-6j
+    e = e0 + 1e-3 * np.abs(e0) * (rng.standard_normal(w.size) + 1j * rng.standard_normal(w.size))
     sig = 1e-3 * np.abs(e0)
 
     def ours():
-        r = fit_pole_pairs(w, e, sig, sig)
-        return r, certify_passivity(r.model)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            return fit_pole_pairs(w, e, sig, sig)
 
     def aaa():
         s = np.concatenate([-1j * w, 1j * w])
@@ -53,40 +64,30 @@ def main():
             warnings.simplefilter("ignore")
             return AAA(s, f)
 
-    (r, cert), t_ours = best_of(ours)
+    r, t_ours = best_of(ours)
     a, t_aaa = best_of(aaa)
-    print(f"fit_pole_pairs + certificate : {t_ours * 1e3:8.1f} ms  (target < 1000 ms)")
-    print(f"scipy AAA (same data, +-w)   : {t_aaa * 1e3:8.1f} ms")
-    print(f"ratio ours / AAA             : {t_ours / t_aaa:8.2f}")
-    true_rms = np.sqrt(np.mean(np.abs(r.model.eps(w) / e0 - 1) ** 2))
-    print(
-        f"ours: {r.n_pairs} entries (+conductor={r.conductor}), rms_rel vs data {r.rms_rel:.2e}, "
-        f"vs truth {true_rms:.2e}, chi2/dof {r.chi2_dof:.3f}, certified {cert.certified}, "
-        f"stable {r.stable}, enforcement needed {r.enforcement.needed}"
-    )
+    floor = np.sqrt(np.mean((np.abs(e - e0) / np.abs(e0)) ** 2))
+    rms_aaa = np.sqrt(np.mean(np.abs(a(-1j * w) / e - 1) ** 2))
+    dense = dense_passivity_check(r.model, 1e-4, 1e4)
     p = a.poles()
-    wfit = np.sqrt(np.mean(np.abs(a(-1j * w) / e - 1) ** 2))
-    stable_p = p[p.real < 0]
+    print(f"{name}")
     print(
-        f"AAA : {p.size} poles, {np.sum(p.real >= 0)} in the right half-plane, "
-        f"rms_rel vs data {wfit:.2e}"
+        f"  ours: {t_ours * 1e3:7.1f} ms, {r.n_pairs} entries (+conductor={r.conductor}), "
+        f"rms {r.rms_rel:.2e} = {r.rms_rel / floor:.2f} x noise, chi2/dof {r.chi2_dof:.3f}, "
+        f"certified {r.passivity.certified} (exact roots {r.passivity.exact_roots}), "
+        f"dense check {dense.passive}, stable {r.stable}"
     )
-    # AAA's stable poles with least-squares residues through our model type, to show passivity
-    rep = stable_p[stable_p.imag > 0]
-    if rep.size:
-        from kkcheck.rational.model import design_matrix, model_from_vector
+    print(
+        f"  AAA : {t_aaa * 1e3:7.1f} ms, {p.size} poles ({np.sum(p.real >= 0)} unstable), "
+        f"rms {rms_aaa:.2e} = {rms_aaa / floor:.2f} x noise"
+    )
+    print(f"  time ratio ours / AAA: {t_ours / t_aaa:.2f}; goal < 500 ms: {t_ours < 0.5}")
 
-        x = design_matrix(rep, False, w)
-        aa = np.vstack([x.real, x.imag]) / np.concatenate([np.abs(e), np.abs(e)])[:, None]
-        bb = np.concatenate([e.real, e.imag]) / np.concatenate([np.abs(e), np.abs(e)])
-        th = np.linalg.lstsq(aa, bb, rcond=None)[0]
-        m = model_from_vector(th, rep, False)
-        assert isinstance(m, PolePairModel)
-        d = dense_passivity_check(m, 1e-3, 1e3)
-        print(
-            f"AAA stable upper poles refitted as pairs: passive on 1e-3..1e3 eV: {d.passive} "
-            f"(min eps2 {d.min_eps2:.3g} at {d.min_energy_ev:.3g} eV)"
-        )
+
+def main():
+    rng = np.random.default_rng(1)
+    for name, fn, band in CASES:
+        run_case(name, fn, band, rng)
 
 
 if __name__ == "__main__":

@@ -247,7 +247,12 @@ def test_fit_to_dict_is_the_summary_fit_block():
     d = r.to_dict()
     demo = Path(__file__).resolve().parents[1] / "reports" / "demo" / "summary.json"
     committed = json.loads(demo.read_text(encoding="utf-8"))["fit"]
-    assert list(d) == list(committed) and d["weighting"] == committed["weighting"] == WEIGHTING
+    # keys are only added (DESIGN.md: other programs read summary.json): the committed demo's
+    # keys come first, in order, until the integrator regenerates the demo
+    assert list(d)[: len(committed)] == list(committed)
+    assert d["weighting"] == committed["weighting"] == WEIGHTING
+    assert d["certificate"]["exact_roots"] == 0 and d["eps_inf"] >= 1.0
+    assert d["device"] is None
     assert d["pairs"] == 1 and d["rms_rel"] < 1e-10 and d["certified_passive"] and d["stable"]
     assert d["range_ev"] == [0.3, 5.0] and d["notes"] == []
     odd = replace(r, rms_rel=float("nan"), max_rel=-0.0).to_dict()

@@ -130,9 +130,7 @@ def exact_numerator(model) -> list[int]:
 
 
 def _primitive(p: list[int]) -> list[int]:
-    g = 0
-    for a in p:
-        g = math.gcd(g, a)
+    g = math.gcd(*p)
     return [a // g for a in p] if g > 1 else p
 
 

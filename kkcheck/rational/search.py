@@ -21,7 +21,6 @@ References
 
 from __future__ import annotations
 
-import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass, replace
 
@@ -39,7 +38,6 @@ from .passivity import (
     EnforcementRecord,
     PassivityCertificate,
     certify_passivity,
-    dense_passivity_check,
     enforce_passivity,
 )
 from .vfit import (
@@ -421,31 +419,11 @@ def enforce_if_needed(
 
 
 def certify(model: PolePairModel) -> PassivityCertificate:
-    """Whole-axis certificate, cross-checked by dense sampling when it says passive.
+    """Whole-axis certificate of ``model`` (:func:`~kkcheck.rational.passivity.certify_passivity`).
 
-    The certificate locates the sign changes of eps2 through the roots of its numerator
-    polynomial in the monomial basis; with a sharp pole far from the others those roots can be
-    off by more than the width of a narrow violation band (seen with gold: a dip to -3e-4 at
-    13.9 eV passed). A certified model is therefore also sampled on 20001 log-spaced energies,
-    1e-4 to 1e4 eV (:func:`~kkcheck.rational.passivity.dense_passivity_check`); when sampling
-    finds eps2 < 0, the certificate is overruled (not certified) with a RuntimeWarning.
+    The certificate's yes is decided exactly (Sturm count in integer arithmetic), so the dense
+    sampling that used to overrule it (a monomial-basis root search once passed a -3e-4 dip
+    of gold at 13.9 eV) is no longer needed here; tests keep the dense check as an
+    independent confirmation (tests/test_certificate.py, tests/test_fit_corpus.py).
     """
-    cert = certify_passivity(model)
-    if not cert.certified:
-        return cert
-    dense = dense_passivity_check(model)
-    if dense.passive:
-        return cert
-    warnings.warn(
-        f"passivity certificate overruled: dense sampling found eps2 {dense.min_eps2:.3g} "
-        f"at {dense.min_energy_ev:.4g} eV",
-        RuntimeWarning,
-        stacklevel=2,
-    )
-    return replace(
-        cert,
-        certified=False,
-        min_eps2=dense.min_eps2,
-        min_energy_ev=dense.min_energy_ev,
-        method=cert.method + "; overruled by dense sampling (eps2 < 0 found)",
-    )
+    return certify_passivity(model)
