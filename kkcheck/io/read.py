@@ -58,6 +58,7 @@ duplicates), then the sign convention here.
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import warnings
 from pathlib import Path
@@ -91,6 +92,7 @@ from .values import (
     order_note,
     values_to_eps,
 )
+from .workbook import is_workbook, workbook_lines
 
 __all__ = ["read_table", "MIN_POINTS", "CONVENTIONS", "QUANTITIES"]
 
@@ -108,6 +110,7 @@ def read_table(
     name: str | None = None,
     convention: ConventionChoice = "auto",
     columns=None,
+    sheet=None,
 ) -> Dataset:
     """Read one table of optical constants into a :class:`~kkcheck.spectrum.Dataset`.
 
@@ -132,6 +135,9 @@ def read_table(
         Which column holds what, by header name or 1-based number, e.g.
         ``{"axis": "Wavelength (nm)", "n": 2, "k": 3}`` (:mod:`kkcheck.io.select`); the
         other columns are left unused and named in a note.
+    sheet : str, optional
+        For an .xlsx workbook (:mod:`kkcheck.io.workbook`, needs ``openpyxl``): the sheet to
+        read; the first by default.
 
     Returns
     -------
@@ -164,7 +170,10 @@ def read_table(
     shown = str(path)
     raw = read_bytes(p, shown)
     digest = hashlib.sha256(raw).hexdigest()
-    table, parsed, notes = _numbers(raw, shown, axis_opt, quantity_opt, columns)
+    if is_workbook(p, raw):
+        table, parsed, notes = _workbook_numbers(p, shown, axis_opt, quantity_opt, columns, sheet)
+    else:
+        table, parsed, notes = _numbers(raw, shown, axis_opt, quantity_opt, columns)
     lay = table.layout
     energy = check_axis(parsed, lay, shown)
     notes.extend(axis_plausibility(energy, parsed, lay, shown))
@@ -209,6 +218,20 @@ def _numbers(raw: bytes, shown: str, axis_opt, quantity_opt, columns):
         rows, mark_notes = _cells_with_points(table, shown)
         parsed = parse_rows(rows, table.layout, table.delim, shown, table.header_line)
     notes = [] if encoding == "utf-8" else [f"encoding: read as {encoding}"]
+    return table, parsed, notes + list(table.notes) + mark_notes
+
+
+def _workbook_numbers(p: Path, shown: str, axis_opt, quantity_opt, columns, sheet):
+    """(layout, numbers, notes) of one sheet of a workbook, read like a tab-separated table."""
+    lines, chosen = workbook_lines(p, shown, sheet)
+    table = table_layout(lines, axis_opt, quantity_opt, shown, columns)
+    rows, mark_notes = _cells_with_points(table, shown)
+    parsed = parse_rows(rows, table.layout, table.delim, shown, table.header_line)
+    parsed = dataclasses.replace(parsed, q1=None, q2=None)  # binary cells: no printed digits
+    notes = [
+        f"workbook: sheet {chosen!r}; line numbers are the sheet's row numbers",
+        "printed digits: not known (a workbook stores binary numbers)",
+    ]
     return table, parsed, notes + list(table.notes) + mark_notes
 
 
