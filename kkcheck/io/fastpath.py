@@ -6,9 +6,10 @@ then rows of numbers with one delimiter. For those the row-by-row parser
 table in two parts:
 
 * the **head**, the first :data:`HEAD_LINES` lines, goes through the careful reader exactly as
-  before (encoding, comments, metadata, header, delimiter, layout, its data rows);
-* the **body**, every line after the head, is checked at the byte level and then converted by
-  ``pandas.read_csv`` (C engine, correctly rounded float conversion) in one call.
+  before (encoding, comments, metadata, header, delimiter, layout);
+* the **body**, every data line from the head's first one to the end, is checked at the byte
+  level and then converted by ``pandas.read_csv`` (C engine, correctly rounded float
+  conversion; pandas 3) in one call.
 
 The body is used only when every check holds: only ASCII digits, ``. e E + -``, the head's
 delimiter (a single space for whitespace tables) and line ends (LF, or CRLF throughout); no
@@ -27,13 +28,14 @@ mark and the cell end, with the same formula.
 from __future__ import annotations
 
 import io
-from dataclasses import dataclass, replace
+import re
+from dataclasses import dataclass
 
 import numpy as np
 
 from ..errors import InputError
 from . import headerblock as _hb
-from .cells import Parsed, parse_rows, split_all
+from .cells import Parsed
 from .layout import TableLayout, table_layout
 from .text import LINE_BREAK, decode, split_lines
 
@@ -46,6 +48,7 @@ _MIN_HEAD_ROWS = 4
 #: Longest exponent (characters after the sign) counted on bytes; longer ones go the slow way.
 _MAX_EXPONENT_DIGITS = 6
 _NUMBER_BYTES = b"0123456789.eE+-"
+_LINE_BREAK_BYTES = re.compile(rb"\r\n|\r|\n")
 
 
 @dataclass(frozen=True)
@@ -95,11 +98,8 @@ def fast_read(
     cut = _head_end(raw, HEAD_LINES if head_lines is None else head_lines)
     if cut is None:
         return None
-    body = _normalised_body(raw[cut:])
-    if body is None:
-        return None
     try:
-        return _read_parts(raw[:cut], body, shown, axis_opt, quantity_opt, columns)
+        return _read_parts(raw, cut, shown, axis_opt, quantity_opt, columns)
     except InputError:
         return None
 
@@ -125,30 +125,39 @@ def _normalised_body(body: bytes) -> bytes | None:
     return body if body.endswith(b"\n") else body + b"\n"
 
 
-def _read_parts(head: bytes, body: bytes, shown, axis_opt, quantity_opt, columns):
-    text, encoding = decode(head, shown)
+def _read_parts(raw: bytes, cut: int, shown, axis_opt, quantity_opt, columns):
+    """Layout from the head; every data row (the head's and the rest) converted in bulk."""
+    text, encoding = decode(raw[:cut], shown)
     lines = split_lines(text)
     bodies = [b for _, b in lines.content]
     if not bodies or _hb.first_numeric(bodies) is None:
         return None
     table = table_layout(lines, axis_opt, quantity_opt, shown, columns)
-    lay = table.layout
     if len(table.data) < _MIN_HEAD_ROWS or not _plain_head(table):
         return None
-    first_body_line = len(LINE_BREAK.findall(text)) + 1
-    if table.data[-1][0] != first_body_line - 1:
-        return None  # the head ends in a comment or blank line: let the careful parser read
-    rows = list(zip((ln for ln, _ in table.data), split_all(table.data, table.delim, shown)))
-    if any(len(r) != lay.ncols for _, r in rows):
+    first = table.data[0][0]
+    after_head = len(LINE_BREAK.findall(text)) + 1
+    if [ln for ln, _ in table.data] != list(range(first, after_head)):
+        return None  # a comment or blank line among the head's rows: the careful parser reads
+    start = _line_offset(raw[:cut], first)
+    body = None if start is None else _normalised_body(raw[start:])
+    if body is None:
         return None
-    head_parsed = parse_rows(rows, lay, table.delim, shown, table.header_line)
-    grid = _body_grid(body, table.delim, lay.ncols)
+    grid = _body_grid(body, table.delim, table.layout.ncols)
     if grid is None:
         return None
-    body_parsed = _parse_body(body, grid, lay, table.delim, first_body_line)
-    if body_parsed is None:
-        return None
-    return FastRead(table, _concat(head_parsed, body_parsed), encoding)
+    parsed = _parse_body(body, grid, table.layout, table.delim, first)
+    return None if parsed is None else FastRead(table, parsed, encoding)
+
+
+def _line_offset(head: bytes, line: int) -> int | None:
+    """Byte offset where 1-based ``line`` of ``head`` starts (line breaks as the text reader)."""
+    if line == 1:
+        return None if head.startswith(b"\xef\xbb\xbf") else 0  # a BOM: let the careful read
+    for i, m in enumerate(_LINE_BREAK_BYTES.finditer(head), start=2):
+        if i == line:
+            return m.end()
+    return None
 
 
 def _plain_head(table: TableLayout) -> bool:
@@ -198,7 +207,8 @@ def _body_grid(body: bytes, delim: str, ncols: int) -> _Grid | None:
         return None
     if ends[0, 0] == 0 or np.any(np.diff(ends_flat) == 1):
         return None  # an empty cell
-    dot, emark = (np.full(ends_flat.size, -1, dtype=np.int64) for _ in range(2))
+    small = np.int32 if a.size < 2**31 - 1 else np.int64  # half the memory: fewer page faults
+    dot, emark = (np.full(ends_flat.size, -1, dtype=small) for _ in range(2))
     for out, (cell, at) in zip((dot, emark), marks, strict=True):
         out[cell] = at
     return _Grid(a, ends, dot.reshape(ends.shape), emark.reshape(ends.shape))
@@ -286,6 +296,7 @@ def _parse_body(body: bytes, grid: _Grid, lay, delim: str, first_line: int) -> P
             dtype=float,
             na_filter=False,
             engine="c",
+            **_exact_floats(pd),
         )
     except (ValueError, pd.errors.ParserError):
         return None
@@ -300,6 +311,16 @@ def _parse_body(body: bytes, grid: _Grid, lay, delim: str, first_line: int) -> P
     q1, q2 = (q[c] if c >= 0 else np.zeros(n) for c in lay.value_cols)
     lines = np.arange(first_line, first_line + n, dtype=int)
     return _parsed_from(cols, lay, lines, q1, q2)
+
+
+def _exact_floats(pd) -> dict:
+    """read_csv keywords for correctly rounded floats (what Python's ``float`` gives).
+
+    pandas 3 converts correctly rounded by default (and deprecates the keyword); before it, the
+    default converter may differ from ``float`` in the last bit, so "round_trip" is asked for.
+    """
+    major = int(pd.__version__.split(".")[0])
+    return {} if major >= 3 else {"float_precision": "round_trip"}
 
 
 def _quantum(grid: _Grid, c: int) -> np.ndarray | None:
@@ -357,27 +378,4 @@ def _parsed_from(cols: dict, lay, lines: np.ndarray, q1, q2) -> Parsed:
         s2=cols[sig[1]] if sig else None,
         q1=q1,
         q2=q2,
-    )
-
-
-def _concat(head: Parsed, body: Parsed) -> Parsed:
-    """Head rows then body rows, field by field."""
-
-    def cat(x, y):
-        return None if x is None else np.concatenate([x, y])
-
-    return replace(
-        head,
-        lines=cat(head.lines, body.lines),
-        axis_values=cat(head.axis_values, body.axis_values),
-        extra_axes=tuple(cat(x, y) for x, y in zip(head.extra_axes, body.extra_axes, strict=True)),
-        v1=cat(head.v1, body.v1),
-        v2=cat(head.v2, body.v2),
-        nk_check=None
-        if head.nk_check is None
-        else (cat(head.nk_check[0], body.nk_check[0]), cat(head.nk_check[1], body.nk_check[1])),
-        s1=cat(head.s1, body.s1),
-        s2=cat(head.s2, body.s2),
-        q1=cat(head.q1, body.q1),
-        q2=cat(head.q2, body.q2),
     )
