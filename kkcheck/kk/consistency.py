@@ -32,13 +32,17 @@ Verdict rule (documented in :class:`KKTestOptions`; the same for every material)
    whole span (a single local fault never yields a window-wide region);
 4. every region gets its size in physical units (:mod:`kkcheck.kk.verdict`): the largest
    relative excess deviation of its component, |data - model| beyond the noise divided by
-   max(|eps|, 1), and the largest |dn|, |dk|. Only regions larger than ``tolerance``
-   (default 1 %, justified in :mod:`kkcheck.kk.verdict`) count; the others are reported as
+   max(|eps|, 1), and the largest |dn|, |dk|. After a refit it is sized against both the
+   refit and the fit to all points and the smaller size counts (the fit to all points is a
+   lower bound; the refit extrapolates into a left-out region at a window edge); both are
+   reported. Only regions larger than ``tolerance`` (default 1 %, justified in
+   :mod:`kkcheck.kk.verdict`) count; the others are reported as
    ``regions_within_tolerance``;
 5. ``"inconsistent"`` when a region exceeds the tolerance, or when chi2/dof >
    ``chi2_threshold`` (3: allows the noise estimate to be ~1.7x too small before crying
    wolf) and the worst part of the residuals (a region of origin "worst_part", with a note
-   saying the verdict comes from the overall misfit) exceeds the tolerance; else
+   saying the verdict comes from the overall misfit; the most significant run, or else the
+   run around the largest relative deviation) exceeds the tolerance; else
    ``"consistent"``, and ``verdict_text`` says "consistent within X %".
 
 What no finite window can reveal: a constant offset of eps1 (absorbed by eps_inf), and
@@ -85,11 +89,12 @@ from ..options import DOWNWEIGHT_FACTOR
 from ..spectrum import Flag, Spectrum
 from .basisfit import KKBasisModel, choose_nodes, fit_kk_basis
 from .binning import bin_means, bin_spectrum
+from .refits import Pass, cores_of_wide_regions, evaluate, refit_without_regions
 from .regions import Region, find_regions
 from .verdict import (
     DEFAULT_TOLERANCE,
-    core_of,
     deviation_profile,
+    largest_part,
     minor_note,
     misfit_note,
     sized_region,
@@ -239,8 +244,10 @@ class KKTestResult:
     tolerance : float
         Tolerance of the verdict [fraction of max(|eps|, 1)].
     deviation_rms_rel, deviation_max_rel : float
-        rms and largest relative excess deviation of eps over the counted points of the
-        whole window [fraction of max(|eps|, 1)] (:func:`kkcheck.kk.verdict.deviation_profile`).
+        rms and largest relative excess deviation of eps from the fit to all points over the
+        counted points of the whole window [fraction of max(|eps|, 1)]
+        (:func:`kkcheck.kk.verdict.deviation_profile`; the fit to all points even after a
+        refit, so that the figure is a lower bound like the regions' sizes).
     deviation_max_ev : float
         Energy of the largest deviation [eV].
     regions_within_tolerance : tuple of Region
@@ -380,19 +387,26 @@ def kk_test(
         smoothing=opt.smoothing,
     )
     counted = (~bad) & (wt > 0)
-    found = _evaluate(spectrum, fit.model, u1, u2, counted, opt)
-    zc = np.concatenate([found.z1[counted], found.z2[counted]])
+    first = evaluate(spectrum, fit.model, u1, u2, counted, opt)
+    zc = np.concatenate([first.z1[counted], first.z2[counted]])
     chi2_dof = float(zc @ zc) / max(1.0, zc.size - fit.n_effective)
-    if found.regions and opt.refit_regions:
-        refit, more = _refit_without_regions(spectrum, found, u1, u2, wt, counted, opt)
-        # a refit is reported only when it shows a fault larger than the tolerance; else
-        # the fit to all points is the better model of data that are consistent within it
-        if _any_beyond_tolerance(spectrum, refit, (s1, s2), counted, opt):
+    found = first
+    if first.regions and opt.refit_regions:
+        refit, more = refit_without_regions(spectrum, first, u1, u2, wt, counted, opt)
+        # a refit is reported only when it shows a fault larger than the tolerance (against
+        # both fits); else the fit to all points is the better model of data that are
+        # consistent within it
+        if refit is not first and _any_beyond_tolerance(
+            spectrum, refit, first, (s1, s2), counted, opt
+        ):
             found = refit
             notes.extend(more)
-    found, more = _cores_of_wide_regions(spectrum, found, counted, opt)
+        elif refit is first:
+            notes.extend(more)
+    found, more = cores_of_wide_regions(spectrum, found, counted, opt)
     notes.extend(more)
-    return _result(spectrum, found, counted, (s1, s2), chi2_dof, anchors, notes, opt)
+    fits = (found, None if found.model is first.model else first)
+    return _result(spectrum, fits, counted, (s1, s2), chi2_dof, anchors, notes, opt)
 
 
 def _binned_test(spectrum: Spectrum, anchors_ev, wt, opt: KKTestOptions) -> KKTestResult:
@@ -415,17 +429,6 @@ def _binned_test(spectrum: Spectrum, anchors_ev, wt, opt: KKTestOptions) -> KKTe
         notes=(*res.notes, f"the dense fit takes at most {opt.max_dense_points} points: {note}"),
         note_codes=(*res.note_codes, "binned"),
     )
-
-
-@dataclass(frozen=True)
-class _Pass:
-    """Model, its eps at the data, normalised residuals and regions of one fit."""
-
-    model: KKBasisModel
-    eps: np.ndarray
-    z1: np.ndarray
-    z2: np.ndarray
-    regions: list
 
 
 def _node_options(opt: KKTestOptions) -> dict:
@@ -512,127 +515,58 @@ def _drude_gammas(spectrum: Spectrum, opt: KKTestOptions) -> np.ndarray:
     return e[0] * np.array([0.01, 0.03, 0.1, 0.3, 1.0]) if use_drude else np.zeros(0)
 
 
-def _evaluate(spectrum, model: KKBasisModel, u1, u2, counted, opt: KKTestOptions) -> _Pass:
-    """Residuals of ``model`` normalised by the fit sigmas, and the regions they make."""
-    e = spectrum.energy_ev
-    mod = model.eps(e)
-    z1 = (spectrum.eps.real - mod.real) / u1
-    z2 = (spectrum.eps.imag - mod.imag) / u2
-    regions = find_regions(e, z1, counted, "eps1", opt) + find_regions(e, z2, counted, "eps2", opt)
-    return _Pass(model, mod, z1, z2, regions)
-
-
-def _refit_without_regions(spectrum, first: _Pass, u1, u2, wt, counted, opt: KKTestOptions):
-    """Step 3 of the verdict rule: refits without the most severe regions' points.
-
-    A fault pulls the fit towards itself and spreads residuals to its neighbours; residuals
-    and regions are then measured against the model of the remaining, consistent data. Each
-    refit leaves out, in addition, the severe regions of the previous one (wide ones shrunk
-    to their core), warm-started from the previous solution. Returns the pass to report and
-    its (code, text) notes.
-    """
-    e = spectrum.energy_ev
-    m = len(spectrum)
-    excluded = np.zeros(m, bool)
-    current, made, too_many = first, 0, False
-    for _ in range(max(0, opt.max_refits)):
-        trial = excluded | _severe_points(e, current, counted, opt)
-        if not current.regions or not np.any(trial & ~excluded):
-            break
-        w2 = np.where(trial, 0.0, wt)
-        if np.count_nonzero(w2) < max(MIN_POINTS, (1 - opt.max_excluded_fraction) * m):
-            too_many = True
-            break
-        fit2 = current.model.refit(
-            e, spectrum.eps, u1, u2, w2, smoothing=opt.smoothing, warm_start=True
-        )
-        second = _evaluate(spectrum, fit2.model, u1, u2, counted, opt)
-        if not second.regions:
-            break
-        current, excluded, made = second, trial, made + 1
-    if made == 0:
-        if too_many:
-            text = "inconsistent over most of the window: no refit without the regions was made"
-            return first, [("no_refit", text)]
-        return first, []
-    text = (
-        f"regions, residuals and model are from a refit ({made} in all) without the points "
-        "found inconsistent; chi2/dof is of the fit to all points"
-    )
-    return current, [("refit_without_regions", text)]
-
-
-def _any_beyond_tolerance(spectrum, found: _Pass, sigmas, counted, opt: KKTestOptions) -> bool:
-    """True when a region of ``found`` is larger than the tolerance (step 4 of the rule)."""
+def _deviations(spectrum, fits, sigmas, counted, opt: KKTestOptions):
+    """Deviation profiles of the reported pass and of the fit to all points (None when the
+    reported pass is that fit)."""
+    found, first = fits
     dev = deviation_profile(spectrum.eps, found.eps, *sigmas, counted, opt.run_width)
+    if first is None:
+        return dev, None
+    return dev, deviation_profile(spectrum.eps, first.eps, *sigmas, counted, opt.run_width)
+
+
+def _any_beyond_tolerance(spectrum, refit: Pass, first: Pass, sigmas, counted, opt) -> bool:
+    """True when a region of ``refit`` is larger than the tolerance against both fits."""
+    dev, dev_all = _deviations(spectrum, (refit, first), sigmas, counted, opt)
     e = spectrum.energy_ev
-    return any(sized_region(g, e, dev, opt.tolerance).exceeds_tolerance for g in found.regions)
+    return any(
+        sized_region(g, e, dev, opt.tolerance, dev_all, refit.left_out).exceeds_tolerance
+        for g in refit.regions
+    )
 
 
-def _severe_points(e, found: _Pass, counted, opt: KKTestOptions) -> np.ndarray:
-    """Points of the regions with severity >= ``refit_severity_ratio`` x the largest, each
-    wide region (more than ``max_region_fraction`` of the counted points) shrunk to its core."""
-    inside = np.zeros(e.size, bool)
-    if not found.regions:
-        return inside
-    top = max(g.severity for g in found.regions)
-    for g in found.regions:
-        if g.severity >= opt.refit_severity_ratio * top:
-            g = _core_if_wide(g, e, found, counted, opt)
-            inside |= (e >= g.from_ev) & (e <= g.to_ev)
-    return inside
-
-
-def _core_if_wide(g: Region, e, found: _Pass, counted, opt: KKTestOptions) -> Region:
-    """``g``, or its core (:func:`kkcheck.kk.verdict.core_of`) when it is wide."""
-    n_in = np.count_nonzero(counted & (e >= g.from_ev) & (e <= g.to_ev))
-    if n_in <= opt.max_region_fraction * max(1, np.count_nonzero(counted)):
-        return g
-    z = found.z1 if g.component == "eps1" else found.z2
-    return core_of(g, e, z, counted, opt.run_width, opt.z_threshold)
-
-
-def _cores_of_wide_regions(spectrum, found: _Pass, counted, opt: KKTestOptions):
-    """Wide regions replaced by their core, with a note naming each whole span."""
-    e = spectrum.energy_ev
-    out, notes = [], []
-    for g in found.regions:
-        c = _core_if_wide(g, e, found, counted, opt)
-        if c is not g:
-            notes.append(
-                (
-                    "region_core",
-                    f"{g.component} deviates beyond the noise over {g.from_ev:.4g}-"
-                    f"{g.to_ev:.4g} eV; the worst part, {c.from_ev:.4g}-{c.to_ev:.4g} eV, is "
-                    "reported as the region",
-                )
-            )
-        out.append(c)
-    return dataclasses.replace(found, regions=out), notes
-
-
-def _result(spectrum, found: _Pass, counted, sigmas, chi2_dof, anchors, notes, opt):
-    """The verdict (steps 4 and 5 of the rule) and the result record."""
+def _result(spectrum, fits, counted, sigmas, chi2_dof, anchors, notes, opt):
+    """The verdict (steps 4 and 5 of the rule) and the result record; ``fits`` is (reported
+    pass, fit to all points or None when that is the reported pass)."""
     s1, s2 = sigmas
+    found = fits[0]
     e = spectrum.energy_ev
     zc = np.concatenate([found.z1[counted], found.z2[counted]])
     n_res = zc.size
-    dev = deviation_profile(spectrum.eps, found.eps, s1, s2, counted, opt.run_width)
-    sized = [sized_region(g, e, dev, opt.tolerance) for g in found.regions]
+    dev, dev_all = _deviations(spectrum, fits, sigmas, counted, opt)
+    cut = found.left_out
+    sized = [sized_region(g, e, dev, opt.tolerance, dev_all, cut) for g in found.regions]
     regions = [g for g in sized if g.exceeds_tolerance]
     minor = [g for g in sized if not g.exceeds_tolerance]
     if minor:
         notes = [*notes, ("within_tolerance", minor_note(minor, opt.tolerance))]
     if chi2_dof > opt.chi2_threshold and not regions:
         worst = worst_part(e, found.z1, found.z2, counted, opt.run_width, opt.strong_severity)
-        worst = sized_region(worst, e, dev, opt.tolerance)
+        worst = sized_region(worst, e, dev, opt.tolerance, dev_all, cut)
+        if not worst.exceeds_tolerance:
+            # the most significant part is small: the largest part in eps units may not be
+            largest = largest_part(
+                e, dev if dev_all is None else dev_all, found.z1, found.z2, counted, opt
+            )
+            largest = sized_region(largest, e, dev, opt.tolerance, dev_all, cut)
+            worst = largest if largest.exceeds_tolerance else worst
         notes = [
             *notes,
             misfit_note(chi2_dof, worst, bool(sized), opt.chi2_threshold, opt.tolerance),
         ]
         if worst.exceeds_tolerance:
             regions = [worst]
-    rms_rel, max_rel, max_ev, _ = window_deviation(e, dev, counted)
+    rms_rel, max_rel, max_ev, _ = window_deviation(e, dev if dev_all is None else dev_all, counted)
     verdict = "inconsistent" if regions else "consistent"
     return KKTestResult(
         method=METHOD,

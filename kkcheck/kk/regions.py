@@ -39,8 +39,15 @@ class Region:
         ``"moderate"`` or ``"strong"`` (severity >= ``KKTestOptions.strong_severity``).
     deviation_rel : float
         Size of the inconsistency: the largest relative excess deviation of ``component``
-        inside the region [fraction of max(|eps|, 1)] (:mod:`kkcheck.kk.verdict`); NaN until
-        the KK test sizes the region.
+        inside the region [fraction of max(|eps|, 1)] (:func:`kkcheck.kk.verdict.sized_region`),
+        the smaller of ``deviation_all_rel`` and ``deviation_refit_rel``; NaN until the KK test
+        sizes the region. The tolerance is decided on it.
+    deviation_all_rel : float
+        The size against the fit to all points (a lower bound: that fit is pulled towards the
+        fault).
+    deviation_refit_rel : float
+        The size against the refit without the most severe regions (NaN when no refit was
+        reported); it can be inflated where the refit extrapolates into left-out points.
     dn_max, dk_max : float
         Largest |n_data - n_model| and |k_data - k_model| inside the region (NaN until sized).
     exceeds_tolerance : bool
@@ -58,6 +65,8 @@ class Region:
     severity: float
     label: str = "moderate"
     deviation_rel: float = float("nan")
+    deviation_all_rel: float = float("nan")
+    deviation_refit_rel: float = float("nan")
     dn_max: float = float("nan")
     dk_max: float = float("nan")
     exceeds_tolerance: bool = True
@@ -65,7 +74,9 @@ class Region:
 
     def to_dict(self) -> dict:
         """The region as summary.json holds it: from_ev, to_ev, component, severity, label,
-        deviation_percent (100 x deviation_rel), dn_max, dk_max, exceeds_tolerance, origin."""
+        deviation_percent (100 x deviation_rel), deviation_all_percent,
+        deviation_refit_percent (None without a refit), dn_max, dk_max, exceeds_tolerance,
+        origin."""
         return {
             "from_ev": json_float(self.from_ev),
             "to_ev": json_float(self.to_ev),
@@ -73,6 +84,8 @@ class Region:
             "severity": json_float(self.severity),
             "label": self.label,
             "deviation_percent": json_float(100.0 * self.deviation_rel),
+            "deviation_all_percent": json_float(100.0 * self.deviation_all_rel),
+            "deviation_refit_percent": json_float(100.0 * self.deviation_refit_rel),
             "dn_max": json_float(self.dn_max),
             "dk_max": json_float(self.dk_max),
             "exceeds_tolerance": bool(self.exceeds_tolerance),
