@@ -559,7 +559,9 @@ def _result(spectrum, fits, counted, sigmas, chi2_dof, anchors, notes, opt):
                 e, dev if dev_all is None else dev_all, found.z1, found.z2, counted, opt
             )
             largest = sized_region(largest, e, dev, opt.tolerance, dev_all, cut)
-            worst = largest if largest.exceeds_tolerance else worst
+            # it counts only where it is also locally significant (|z| above the threshold)
+            if largest.exceeds_tolerance and largest.severity > opt.z_threshold:
+                worst = largest
         notes = [
             *notes,
             misfit_note(chi2_dof, worst, bool(sized), opt.chi2_threshold, opt.tolerance),

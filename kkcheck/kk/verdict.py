@@ -341,7 +341,10 @@ def verdict_text(regions, minor, max_rel: float, tolerance: float) -> str:
             f"{_pct(tolerance)})"
         )
     largest = max([max_rel, *(g.deviation_rel for g in minor)])
+    # a larger deviation without a region is not significant where it is: say so, so that
+    # the phrase never reads as "within 1 %" next to a bigger number without a reason
+    caveat = ", not significant where it occurs" if largest > tolerance else ""
     return (
         f"consistent within {_pct(tolerance)} (largest deviation beyond the noise "
-        f"{_pct(largest)} of |eps|)"
+        f"{_pct(largest)} of |eps|{caveat})"
     )
