@@ -30,7 +30,7 @@ _HELD: dict[str, int] = {}
 
 
 def pid_running(pid: int) -> bool:
-    """True when a process ``pid`` exists on this host (a zombie counts as running)."""
+    """True when a process ``pid`` runs on this host (a zombie, dead but not reaped, does not)."""
     if pid <= 0:
         return False
     try:
@@ -38,8 +38,12 @@ def pid_running(pid: int) -> bool:
     except ProcessLookupError:
         return False
     except PermissionError:  # exists, another user's
+        pass
+    try:  # Linux: state letter after the command name in /proc/<pid>/stat
+        state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+    except (OSError, IndexError):
         return True
-    return True
+    return state not in ("Z", "X")
 
 
 def _read_owner(lock: Path) -> dict | None:
