@@ -22,7 +22,8 @@ References
 ----------
 .. [1] OWASP Foundation, "CSV Injection" (community page; the leading characters ``= + - @``,
    tab and carriage return that spreadsheets treat as the start of a formula). Common
-   practice, cited from memory; see docs/references.md#csv-injection.
+   practice, cited from memory; see docs/references.md#csv-injection (and #posix-rename for
+   the atomic replacement).
 """
 
 from __future__ import annotations
