@@ -1,6 +1,6 @@
 """Datasets per second of ``kkcheck batch`` against a serial loop over kkcheck.pipeline.check.
 
-Data: N (default 100) small noisy datasets (40-80 points unless --points is given) generated
+Data: N (default 200) small noisy datasets (100 points; --points 0 gives 40-80) generated
 in a temporary folder from closed-form materials (Tauc-Lorentz, Lorentz, Sellmeier silica,
 Rakić gold), half as n,k against wavelength and half as eps1,eps2 against energy, every fifth
 with a planted KK fault (k shifted by 50 meV).
@@ -17,7 +17,7 @@ BLAS threads are capped at 1 here (as the batch does in its workers): on small p
 OpenBLAS's own threads only add overhead, and on a loaded 2-core machine they made the
 in-process runs 3-4x slower.
 
-Run: python benchmarks/batch_bench.py [--n 100] [--points 60] [--fit] [--repeat 3]
+Run: python benchmarks/batch_bench.py [--n 200] [--points 100] [--fit] [--repeat 3]
 """
 
 import os
@@ -83,8 +83,8 @@ def timed(fn, repeat: int = 1):
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    ap.add_argument("--n", type=int, default=100, help="number of datasets (default 100)")
-    ap.add_argument("--points", type=int, default=None, help="points per dataset (40-80)")
+    ap.add_argument("--n", type=int, default=200, help="number of datasets (default 200)")
+    ap.add_argument("--points", type=int, default=100, help="points per dataset (default 100)")
     ap.add_argument("--fit", action="store_true", help="also repair and fit each dataset")
     ap.add_argument("--repeat", type=int, default=3, help="best of this many runs (default 3)")
     args = ap.parse_args()

@@ -55,52 +55,31 @@ error
 from __future__ import annotations
 
 import contextlib
-import csv
-import html
-import io
 import multiprocessing
 import os
 import signal
 import sys
 import threading
 import time
-import urllib.parse
 import warnings
 from collections.abc import Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass
 from pathlib import Path
 
+from .batchindex import (
+    INDEX_COLUMNS,
+    INDEX_FILES,
+    _not_run_rows,
+    _spreadsheet_safe,  # noqa: F401  (tests use it)
+    _write_index,
+)
 from .errors import InputError, OutputError
 
 __all__ = ["BatchResult", "find_items", "vet_item", "run_batch", "INDEX_COLUMNS"]
 
 TABLE_SUFFIXES = (".csv", ".tsv", ".txt", ".dat", ".tab")
 CONFIG_SUFFIX = ".toml"
-INDEX_FILES = ("index.csv", "index.html")
-
-#: Columns of index.csv, in order.
-INDEX_COLUMNS = (
-    "name",
-    "path",
-    "status",
-    "verdict",
-    "chi2_dof",
-    "regions",
-    "outliers",
-    "points",
-    "range_lo_ev",
-    "range_hi_ev",
-    "pairs",
-    "rms_rel",
-    "passive",
-    "warnings",
-    "seconds",
-    "error",
-)
-
-#: Longest text cell written into the index (file names, paths, error messages) [characters].
-MAX_CELL_CHARS = 300
 
 #: How often a local worker checks that its parent still runs [s].
 _PARENT_POLL_S = 0.5
@@ -394,7 +373,12 @@ def _init_worker(threads: int, parent_pid: int = 0) -> None:
 def _mp_context():
     """A start method that is safe when the parent runs threads (fork is not)."""
     methods = multiprocessing.get_all_start_methods()
-    return multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
+    if "forkserver" not in methods:
+        return multiprocessing.get_context("spawn")
+    ctx = multiprocessing.get_context("forkserver")
+    # the fork server imports the pipeline once; every worker forks from it ready to run
+    ctx.set_forkserver_preload(["kkcheck.batch", "kkcheck.pipeline"])
+    return ctx
 
 
 def _end_workers(pool: ProcessPoolExecutor) -> None:
@@ -467,119 +451,6 @@ def _run_dask(tasks, scheduler, bar: _Bar, rows: list, client=None) -> None:
     finally:
         if own:
             client.close()
-
-
-#: index.csv columns holding text from file names or messages (guarded against formulas).
-_TEXT_COLUMNS = ("name", "path", "error")
-
-
-def _bounded(value) -> str:
-    """A text cell on one line and at most :data:`MAX_CELL_CHARS` characters."""
-    text = " ".join(str(value).split())
-    if len(text) > MAX_CELL_CHARS:
-        text = text[: MAX_CELL_CHARS - 3] + "..."
-    return text
-
-
-def _spreadsheet_safe(value):
-    """Text bounded and quoted when a spreadsheet would run it as a formula (see io.write).
-
-    Values that are not text (counts, flags) are returned as they are.
-    """
-    from .io.write import spreadsheet_safe
-
-    return spreadsheet_safe(_bounded(value)) if isinstance(value, str) else value
-
-
-def _index_csv(rows: Sequence[dict]) -> str:
-    buf = io.StringIO()
-    w = csv.DictWriter(buf, fieldnames=INDEX_COLUMNS, lineterminator="\n")
-    w.writeheader()
-    for r in rows:
-        w.writerow({k: _spreadsheet_safe(v) if k in _TEXT_COLUMNS else v for k, v in r.items()})
-    return buf.getvalue()
-
-
-def _index_html(rows: Sequence[dict], out: Path, folder: Path, complete: bool) -> str:
-    def link(r) -> str | None:
-        if r["status"] != "ok":
-            return None
-        for target in ("report.html", "summary.json"):
-            if (out / r["name"] / target).is_file():
-                href = urllib.parse.quote(r["name"]) + "/" + target
-                return html.escape(href, quote=True)
-        return None
-
-    def cell(r, c) -> str:
-        v = html.escape(_bounded(r.get(c, "")))
-        href = link(r) if c == "name" else None
-        return f'<a href="{href}">{v}</a>' if href else v
-
-    head = "".join(f"<th>{html.escape(c)}</th>" for c in INDEX_COLUMNS)
-    body = "\n".join(
-        f'<tr class="{html.escape(str(r.get("verdict") or r["status"]), quote=True)}">'
-        + "".join(f"<td>{cell(r, c)}</td>" for c in INDEX_COLUMNS)
-        + "</tr>"
-        for r in rows
-    )
-    n_bad = sum(r["status"] == "error" for r in rows)
-    n_inc = sum(r.get("verdict") == "inconsistent" for r in rows)
-    n_left = sum(r["status"] == NOT_RUN for r in rows)
-    warn = (
-        ""
-        if complete
-        else f'<p class="incomplete"><strong>Incomplete:</strong> the batch was interrupted; '
-        f"{n_left} datasets were not run (rerun with --resume to finish).</p>\n"
-    )
-    return f"""<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8"><title>kkcheck batch index</title>
-<style>
-body {{ font-family: system-ui, sans-serif; margin: 2em; color: #222; }}
-table {{ border-collapse: collapse; font-size: 0.9em; }}
-th, td {{ border: 1px solid #ccc; padding: 0.25em 0.5em; text-align: left; }}
-tr.inconsistent td {{ background: #fde8e8; }} tr.error td {{ background: #eee; color: #900; }}
-tr.consistent td {{ background: #eef8ee; }} .incomplete {{ color: #900; }}
-</style></head><body>
-<h1>kkcheck batch index</h1>
-{warn}<p>Folder: {html.escape(_bounded(folder))} &mdash; {len(rows)} datasets, {n_inc} inconsistent,
-{n_bad} could not be vetted. Each verdict holds only for the window that dataset covers.</p>
-<table><thead><tr>{head}</tr></thead><tbody>
-{body}
-</tbody></table></body></html>
-"""
-
-
-def _write_index(
-    rows: Sequence[dict], out: Path, folder: Path, protect=(), *, complete=True, overwrite=False
-) -> tuple[Path, Path]:
-    """index.csv and index.html, planned, checked and committed as one (kkcheck.outputs)."""
-    from .io import write_text
-    from .outputs import staged_outputs
-
-    extra = {"complete": bool(complete)}
-    with staged_outputs(
-        out, protect, overwrite=overwrite, command="kkcheck batch", extra=extra
-    ) as stage:
-        write_text(stage / "index.csv", _index_csv(rows))
-        write_text(stage / "index.html", _index_html(rows, out, folder, complete))
-    return out / "index.csv", out / "index.html"
-
-
-#: Status of the rows of items an interrupted batch did not finish.
-NOT_RUN = "not run"
-
-
-def _not_run_rows(tasks, rows) -> list[dict]:
-    done = {r["name"] for r in rows}
-    out = []
-    for t in tasks:
-        if t[2] not in done:
-            row: dict = {c: "" for c in INDEX_COLUMNS}
-            row.update(
-                name=t[2], path=t[0], status=NOT_RUN, error="the batch was interrupted first"
-            )
-            out.append(row)
-    return out
 
 
 def _check_engine(engine, client, scheduler, jobs) -> None:

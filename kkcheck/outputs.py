@@ -258,7 +258,7 @@ def _move(src: Path, dst: Path) -> None:
 
 def _commit(st: _Staging, plan: OutputPlan, manifest: dict) -> None:
     """Move the previous files aside and the staged ones into place; undo all on failure."""
-    from .io.write import atomic_write_bytes
+    from .io.write import atomic_write_bytes, fsync_dir
 
     out, backup = plan.out_dir, st.dir / _BACKUP
     atomic_write_bytes(st.dir / MANIFEST_NAME, json.dumps(manifest, indent=1).encode("utf-8"))
@@ -277,6 +277,8 @@ def _commit(st: _Staging, plan: OutputPlan, manifest: dict) -> None:
                 _move(final, bak)
             done.append((final, bak))
             _move(st.dir / rel, final)
+        for folder in sorted({(out / n).parent for n in names}, reverse=True):
+            fsync_dir(folder)  # the renames are durable before the old files go
     except BaseException as exc:
         _undo(done, was_staged={out / n for n in names})
         if isinstance(exc, OSError):

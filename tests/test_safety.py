@@ -395,7 +395,8 @@ def test_job_file_paths_stay_in_its_folder_unless_allowed(tmp_path):
 
 
 def test_index_html_cells_are_escaped_and_bounded(tmp_path):
-    from kkcheck.batch import MAX_CELL_CHARS, run_batch
+    from kkcheck.batch import run_batch
+    from kkcheck.batchindex import MAX_CELL_CHARS
 
     folder = tmp_path / "d"
     folder.mkdir()

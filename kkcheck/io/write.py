@@ -123,7 +123,11 @@ def spreadsheet_safe(text) -> str:
     return "'" + t if t.startswith(_FORMULA_START) else t
 
 
-def _fsync_dir(folder: Path) -> None:
+#: Name prefix of the staging folders of :mod:`kkcheck.outputs` (their entries are temporary).
+_STAGING = ".kkcheck-staging-"
+
+
+def fsync_dir(folder: Path) -> None:
     """Make a rename in ``folder`` durable (best effort: not every file system allows it)."""
     try:
         fd = os.open(folder, os.O_RDONLY)
@@ -194,7 +198,8 @@ def atomic_write_bytes(path, data: bytes) -> Path:
         if isinstance(exc, OSError):
             raise OutputError.from_os_error(exc, target) from None
         raise
-    _fsync_dir(parent)
+    if not any(part.startswith(_STAGING) for part in parent.parts):
+        fsync_dir(parent)  # a staging folder's entries are renamed away: synced after commit
     return target
 
 
