@@ -134,6 +134,7 @@ def _read_text_as_file(data: bytes, shown: str, spec) -> Dataset:
                 quantity=spec.quantity,
                 name=spec.name or Path(shown.strip("<>")).stem,
                 convention=spec.convention,
+                columns=getattr(spec, "columns", None),
             )
         except InputError as exc:
             msg = exc.message.replace(str(path), shown)
@@ -180,7 +181,6 @@ def _spec_of(item, options):
 
 def _read_one(item, index: int, options):
     """(InputSpec, Dataset) of one input item."""
-    from .io import read_table
     from .job import InputSpec
 
     if isinstance(item, Dataset):
@@ -197,14 +197,34 @@ def _read_one(item, index: int, options):
     if spec.path == "-":
         spec = dataclasses.replace(spec, path="<stdin>", name=spec.name or "stdin")
         return spec, _read_text_as_file(sys.stdin.buffer.read(), "<stdin>", spec)
-    ds = read_table(
+    return spec, read_spec(spec, options)
+
+
+#: Quantities read as normal-incidence reflectance (turned into n,k by the reflectance stage).
+REFLECTANCE_QUANTITIES = ("R", "reflectance")
+
+
+def read_spec(spec, options=None):
+    """Read one file input: a :class:`Dataset`, or a reflectance table for quantity ``"R"``.
+
+    The one place a file named by an :class:`kkcheck.job.InputSpec` is read (the command line,
+    the Python API and job files all come here).
+    """
+    if spec.quantity in REFLECTANCE_QUANTITIES:
+        from .io.reflectance import read_reflectance
+
+        scale = getattr(options, "reflectance_scale", "auto") if options is not None else "auto"
+        return read_reflectance(spec.path, axis=spec.axis, scale=scale, name=spec.name)
+    from .io import read_table
+
+    return read_table(
         spec.path,
         axis=spec.axis,
         quantity=spec.quantity,
         name=spec.name,
         convention=spec.convention,
+        columns=getattr(spec, "columns", None),
     )
-    return spec, ds
 
 
 def read_any(inputs, options) -> tuple[tuple, tuple[Dataset, ...]]:
@@ -226,8 +246,8 @@ def read_any(inputs, options) -> tuple[tuple, tuple[Dataset, ...]]:
         specs.append(spec)
         out.append(ds)
     window = getattr(options, "range_ev", None)
-    if window is not None:
-        out = [select_range(ds, *window) for ds in out]
+    if window is not None:  # a reflectance table keeps its whole window: its KK phase needs it
+        out = [select_range(ds, *window) if isinstance(ds, Dataset) else ds for ds in out]
     return tuple(specs), tuple(out)
 
 

@@ -19,7 +19,7 @@ import json
 import sys
 
 from ._version import __version__
-from .errors import InputError
+from .errors import OUTPUT_ERROR_EXIT, InputError, OutputError
 
 __all__ = ["main", "build_parser"]
 
@@ -66,7 +66,17 @@ def _add_input_options(p: argparse.ArgumentParser) -> None:
         help="axis unit for files whose header does not name it (or that have no header)",
     )
     g.add_argument(
-        "--quantity", choices=("nk", "eps"), help="value columns for files without a header"
+        "--quantity",
+        choices=("nk", "eps", "n", "R"),
+        help="value columns for files without a header (n: a table of n only, k = 0; "
+        "R: normal-incidence reflectance, n,k retrieved by a KK phase)",
+    )
+    g.add_argument(
+        "--columns",
+        type=parse_columns,
+        metavar="ROLE=COL,...",
+        help="which column holds what, by 1-based number or header name, e.g. "
+        "axis=1,n=2,k=3 or 'axis=Wavelength (nm),n=n,k=k'; other columns are left unused",
     )
     g.add_argument(
         "--convention",
@@ -116,7 +126,19 @@ def _add_input_options(p: argparse.ArgumentParser) -> None:
         action="append",
         metavar="EV",
         help="energy [eV] where eps1 is trusted most: its sigma is cut 10x in the KK test "
-        "(repeatable)",
+        "and the MSKK view is pinned there (repeatable)",
+    )
+    g.add_argument(
+        "--tolerance",
+        type=float,
+        metavar="FRACTION",
+        help="inconsistencies smaller than this fraction of |eps| (default 0.01 = 1 %%) do "
+        "not make the verdict inconsistent, however significant",
+    )
+    g.add_argument(
+        "--no-mskk",
+        action="store_true",
+        help="skip the multiply subtractive KK view reported beside the verdict",
     )
     _add_common(p)
     _add_overwrite(p)
@@ -284,6 +306,31 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+def parse_columns(text: str) -> dict:
+    """``--columns axis=1,n=2,k=3`` -> {"axis": 1, "n": 2, "k": 3} (numbers as int, names as
+    text; roles are checked by the reader, :mod:`kkcheck.io.select`)."""
+    out: dict = {}
+    for part in text.split(","):
+        role, eq, col = part.partition("=")
+        if not eq or not role.strip() or not col.strip():
+            raise argparse.ArgumentTypeError(
+                f"expected ROLE=COLUMN pairs separated by commas (e.g. axis=1,n=2,k=3), "
+                f"got {part.strip()!r}"
+            )
+        col = col.strip()
+        out[role.strip()] = int(col) if col.isdigit() else col
+    return out
+
+
+def _inputs_from_args(args) -> list:
+    """The input files, as entries with their column mapping when --columns is given."""
+    columns = getattr(args, "columns", None)
+    if not columns:
+        return list(args.inputs)
+    keep = {k: getattr(args, k) for k in ("axis", "quantity", "convention") if getattr(args, k)}
+    return [{"path": p, "columns": columns, **keep} for p in args.inputs]
+
+
 def _options_from_args(args) -> dict:
     keys = (
         "axis",
@@ -294,6 +341,7 @@ def _options_from_args(args) -> dict:
         "flagged",
         "steps",
         "anchor",
+        "tolerance",
         "pairs",
         "tol",
         "thickness_nm",
@@ -302,6 +350,8 @@ def _options_from_args(args) -> dict:
         "frequency_unit",
     )
     opts = {k: getattr(args, k) for k in keys if getattr(args, k, None) is not None}
+    if getattr(args, "no_mskk", False):
+        opts["mskk"] = False
     if getattr(args, "incoherent", False):
         opts["coherent"] = False
     if getattr(args, "no_correction", False):
@@ -335,18 +385,41 @@ def _show(res, args) -> int:
 
 
 def _dispatch(args) -> int:
+    """Run the command, holding its output folder's lock throughout (when --out is given)."""
+    import contextlib
+
+    from .outputs import overwriting, reserve_folder
+
+    out = getattr(args, "out", None)
+    command = f"kkcheck {args.command}"
+    held = reserve_folder(out, command) if out is not None else contextlib.nullcontext()
+    from .job import ALLOW_OUTSIDE
+
+    token = ALLOW_OUTSIDE.set(bool(getattr(args, "allow_outside", False)))
+    try:
+        with overwriting(getattr(args, "overwrite", False)), held:
+            return _run_command(args)
+    finally:
+        ALLOW_OUTSIDE.reset(token)
+
+
+def _run_command(args) -> int:
     from . import pipeline
 
     quiet = getattr(args, "quiet", False)
     say = (lambda s: None) if quiet else (lambda s: print(s))
     if args.command == "check":
         opts = _options_from_args(args)
-        res = pipeline.check(args.inputs, out_dir=args.out, progress=not quiet, **opts)
+        res = pipeline.check(_inputs_from_args(args), out_dir=args.out, progress=not quiet, **opts)
         return _show(res, args)
     if args.command == "fit":
         opts = _options_from_args(args)
         res = pipeline.fit(
-            args.inputs, out_dir=args.out, report=args.report, **_options_from_args(args)
+            _inputs_from_args(args),
+            out_dir=args.out,
+            report=args.report,
+            progress=not quiet,
+            **opts,
         )
         return _show(res, args)
     if args.command == "run":
@@ -367,6 +440,8 @@ def _dispatch(args) -> int:
             scheduler=args.scheduler,
             fit=args.fit,
             progress=not quiet,
+            overwrite=args.overwrite,
+            resume=args.resume,
         )
         say(res.text_summary())
     return 0
@@ -399,6 +474,12 @@ def main(argv=None) -> int:
             raise
         print(f"kkcheck: {exc.one_line()}", file=sys.stderr)
         return 2
+    except (OutputError, OSError) as exc:  # the output folder or the file system
+        if debug:
+            raise
+        err = exc if isinstance(exc, OutputError) else OutputError.from_os_error(exc)
+        print(f"kkcheck: {err.one_line()}", file=sys.stderr)
+        return OUTPUT_ERROR_EXIT
     except KeyboardInterrupt:
         print("kkcheck: interrupted", file=sys.stderr)
         return 130

@@ -41,6 +41,7 @@ Config file (TOML) keys, all optional except ``inputs``::
 
 from __future__ import annotations
 
+import contextvars
 import dataclasses
 from dataclasses import dataclass
 from pathlib import Path
@@ -68,6 +69,7 @@ class InputSpec:
     quantity: str | None = None
     name: str | None = None
     convention: str = "auto"
+    columns: dict | None = None  # roles -> columns (kkcheck.io.select), e.g. {axis = 1, n = 2}
 
 
 @dataclass(frozen=True)
@@ -100,7 +102,16 @@ class JobOptions:
         other before the KK test, see :func:`kkcheck.clean.level_steps`; every shift is
         reported) or ``"keep"`` (flag only).
     anchors_ev : tuple of float
-        Energies [eV] where eps1 is trusted.
+        Energies [eV] where eps1 is trusted; also the anchors of the MSKK view.
+    tolerance : float
+        Relative size of an inconsistency (of max(|eps|, 1)) below which a significant KK
+        misfit does not make the verdict "inconsistent" (default 0.01, i.e. 1 %; see
+        :mod:`kkcheck.kk.verdict`).
+    mskk : bool
+        Report the MSKK view of the KK test (:func:`kkcheck.kk.mskk.mskk_view`).
+    reflectance_scale : str
+        How R is written in reflectance inputs (quantity ``"R"``): ``"auto"``,
+        ``"fraction"`` or ``"percent"`` (:func:`kkcheck.io.reflectance.read_reflectance`).
     max_points : int
         Above this many points, smooth stretches are binned before the KK test
         (:func:`kkcheck.kk.binning.bin_spectrum`); sharp features, spikes and steps stay unbinned.
@@ -148,6 +159,9 @@ class JobOptions:
     flagged: FlaggedChoice = "replace"
     steps: StepsChoice = "level"
     anchors_ev: tuple[float, ...] = ()
+    tolerance: float = 0.01
+    mskk: bool = True
+    reflectance_scale: str = "auto"
     max_points: int = 3000
     do_fit: bool = False
     pairs: int | None = None
@@ -169,11 +183,16 @@ class JobOptions:
         check_choice("flagged", self.flagged, FlaggedChoice)
         check_choice("steps", self.steps, StepsChoice)
         check_choice("frequency_unit", self.frequency_unit, FrequencyUnitChoice)
-        _check_range_and_axis(self.range_ev, self.axis_out)
         if self.correct not in (True, False, "force"):
             raise InputError(f'correct must be true, false or "force", got {self.correct!r}')
         if not self.max_correction > 0:
             raise InputError(f"max_correction must be > 0, got {self.max_correction!r}")
+        _check_range_and_axis(self.range_ev, self.axis_out)
+        if self.reflectance_scale not in ("auto", "fraction", "percent"):
+            raise InputError(
+                "reflectance_scale must be auto, fraction or percent, got "
+                f"{self.reflectance_scale!r}"
+            )
 
     @property
     def flag_policy(self) -> FlagPolicy:
@@ -204,13 +223,18 @@ def input_specs(inputs, options: JobOptions) -> tuple[InputSpec, ...]:
         elif isinstance(item, dict):
             if "path" not in item:
                 raise InputError(f"an input entry has no 'path': {item!r}")
-            unknown = set(item) - {"path", "axis", "quantity", "name", "convention"}
+            unknown = set(item) - {"path", "axis", "quantity", "name", "convention", "columns"}
             if unknown:
                 raise InputError(
                     f"unknown key(s) {sorted(unknown)} in input entry for {item['path']}; "
-                    "expected path, axis, quantity, name, convention"
+                    "expected path, axis, quantity, name, convention, columns"
                 )
-            specs.append(InputSpec(**{k: str(v) for k, v in item.items()}))
+            if "columns" in item and not isinstance(item["columns"], dict):
+                raise InputError(
+                    f"columns of input entry {item['path']} must be a table such as "
+                    "{axis = 1, n = 2, k = 3}"
+                )
+            specs.append(InputSpec(**{k: v if k == "columns" else str(v) for k, v in item.items()}))
         else:
             specs.append(
                 InputSpec(
@@ -252,7 +276,13 @@ CONFIG_SECTIONS = {
         "rank_sources": "rank_sources",
     },
     "clean": {"flagged": "flagged", "steps": "steps"},
-    "kk": {"anchors_ev": "anchors_ev", "max_points": "max_points"},
+    "kk": {
+        "anchors_ev": "anchors_ev",
+        "max_points": "max_points",
+        "tolerance": "tolerance",
+        "mskk": "mskk",
+    },
+    "reflectance": {"scale": "reflectance_scale"},
     "fit": {
         "enabled": "do_fit",
         "pairs": "pairs",
@@ -329,8 +359,44 @@ def _config_options(cfg: dict, p: Path) -> dict:
     return kw
 
 
-def load_config(path) -> tuple[list, Path | None, JobOptions]:
-    """Read a TOML job file; returns (inputs, out_dir, options). Paths are relative to it."""
+def _confine(p: Path, inputs, out: Path | None, allow_outside: bool | None) -> None:
+    """Refuse (or, when allowed, warn about) job-file paths that leave the job file's folder.
+
+    Real paths are compared (``..`` and symlinks resolved), so ``../../etc/x`` and a symlink
+    to it are both outside. Allowed with ``allow_outside`` (``kkcheck run --allow-outside``),
+    each such path is reported as a warning.
+    """
+    import os
+    import warnings
+
+    base = Path(os.path.realpath(p.parent))
+    allow = ALLOW_OUTSIDE.get() if allow_outside is None else allow_outside
+    named = [("input", q) for q in inputs] + ([("output folder", out)] if out is not None else [])
+    for what, q in named:
+        real = Path(os.path.realpath(q))
+        if real == base or base in real.parents:
+            continue
+        if not allow:
+            raise InputError(
+                f"the {what} {q} lies outside the job file's folder; expected paths inside "
+                "it (kkcheck run --allow-outside reads or writes there on purpose)",
+                path=str(p),
+            )
+        msg = f"{p}: the {what} {q} lies outside the job file's folder"
+        warnings.warn(msg, UserWarning, stacklevel=3)
+
+
+#: Default of ``allow_outside`` for :func:`load_config` (the command line's --allow-outside).
+ALLOW_OUTSIDE = contextvars.ContextVar("kkcheck_allow_outside", default=False)
+
+
+def load_config(path, *, allow_outside: bool | None = None) -> tuple[list, Path | None, JobOptions]:
+    """Read a TOML job file; returns (inputs, out_dir, options). Paths are relative to it.
+
+    Inputs and the output folder must lie inside the job file's folder unless
+    ``allow_outside`` (default: :data:`ALLOW_OUTSIDE`, False) is set; then each outside path
+    is reported as a warning.
+    """
     p = Path(path)
     cfg = _read_toml(p)
     unknown = set(cfg) - _TOP_KEYS
@@ -342,6 +408,7 @@ def load_config(path) -> tuple[list, Path | None, JobOptions]:
     inputs = _config_inputs(cfg, p)
     kw = _config_options(cfg, p)
     out = Path(p.parent / cfg["out"]) if "out" in cfg else None
+    _confine(p, [i["path"] if isinstance(i, dict) else i for i in inputs], out, allow_outside)
     try:
         return inputs, out, job_options(**kw)
     except InputError as exc:

@@ -450,12 +450,15 @@ def _write_files(result: JobResult, out: Path, protect, command: str) -> None:
         provenance_lines=prov + ["merged and flagged (flags: bit mask, see kkcheck.spectrum.Flag)"],
         overwrite_protect=protect,
     )
-    # model.json's content (named ``model`` before the result type called it ``model_json``)
-    model_doc = result.model_json if hasattr(result, "model_json") else result.model
+    model_doc = result.model_json
     if model_doc is not None:
         from .rational.io import parameter_table
 
-        write_json(out / "model.json", model_doc, overwrite_protect=protect)
+        # only a certified passive, stable model is written as "the fit" (model.json); the
+        # best candidate otherwise goes under a name that says what it is
+        good = bool(result.fit.passivity.certified and result.fit.stable)
+        name = "model.json" if good else "model_uncertified.json"
+        write_json(out / name, model_doc, overwrite_protect=protect)
         txt = out / "model_parameters.txt"
         write_text(txt, parameter_table(result.fit.model), overwrite_protect=protect)
     if result.repair is not None:

@@ -52,21 +52,20 @@ __all__ = [
 # ------------------------------------------------------------------------------------ reading
 
 
-def read_inputs(specs: Sequence[InputSpec]) -> tuple[Dataset, ...]:
+def read_inputs(specs: Sequence[InputSpec], options: JobOptions | None = None) -> tuple:
     """Read every input (first error stops, naming the file and line)."""
-    from .io import read_table
+    from .api import read_spec
 
     out = []
     names: set[str] = set()
     for s in specs:
-        ds = read_table(
-            s.path, axis=s.axis, quantity=s.quantity, name=s.name, convention=s.convention
-        )
+        ds = read_spec(s, options)
         if ds.name in names:  # two files with one stem: keep both apart
             ds = dataclasses.replace(ds, name=f"{ds.name}#{len(out) + 1}")
         names.add(ds.name)
         out.append(ds)
     return tuple(out)
+
 
 # ----------------------------------------------------------------------------------- analysis
 
@@ -94,7 +93,9 @@ def _kk_tester(options: JobOptions):
     from .kk.binning import bin_spectrum
     from .kk.consistency import KKTestOptions, kk_test
 
-    kk_opts = KKTestOptions(flagged_sigma_factor=options.flag_policy.kk_sigma_factor)
+    kk_opts = KKTestOptions(
+        flagged_sigma_factor=options.flag_policy.kk_sigma_factor, tolerance=options.tolerance
+    )
     anchors = options.anchors_ev or None
 
     def test(spectrum: Spectrum):
@@ -127,6 +128,48 @@ def _check_size(datasets: Sequence[Dataset]) -> None:
             f"{total} data points in all; the Kramers-Kronig test needs at least {MIN_POINTS}",
             path=where,
         )
+
+
+def _reflectance_stage(inputs, options: JobOptions, say):
+    """Reflectance tables -> n,k Datasets (KK phase), anchored on the other sources merged."""
+    from .io.reflectance import ReflectanceTable
+    from .merge import merge
+    from .reflectance import retrieve_table
+
+    tables = [d for d in inputs if isinstance(d, ReflectanceTable)]
+    if not tables:
+        return tuple(inputs), ()
+    say("reflectance phase")
+    others = [d for d in inputs if not isinstance(d, ReflectanceTable)]
+    spectrum = None
+    if others:
+        spectrum = merge(
+            others, reference=options.reference, correct=options.correct, overlap=options.overlap
+        ).spectrum
+    label = "the merge of " + ", ".join(d.name for d in others) if others else ""
+    out, results = [], []
+    for d in inputs:
+        if isinstance(d, ReflectanceTable):
+            ds, res = retrieve_table(d, spectrum, label)
+            out.append(ds)
+            results.append(res)
+        else:
+            out.append(d)
+    return tuple(out), tuple(results)
+
+
+def _mskk_stage(analysed: Spectrum, kk, options: JobOptions, say):
+    """The MSKK view beside the basis-fit verdict (None when ``options.mskk`` is off)."""
+    if not options.mskk:
+        return None
+    from .kk.mskk import mskk_view
+
+    say("MSKK view")
+    try:
+        return mskk_view(analysed, kk, anchors_ev=options.anchors_ev or None)
+    except InputError as exc:  # a view beside the verdict: its failure is said, not fatal
+        warnings.warn(f"no MSKK view: {exc.message}", RuntimeWarning, stacklevel=2)
+        return None
 
 
 def _merge_stage(datasets, options: JobOptions, say):
@@ -221,12 +264,14 @@ def analyse(
     options = options if options is not None else JobOptions()
     say = progress or (lambda s: None)
     t0 = time.perf_counter()
-    _check_size(datasets)
     repaired = fitted = slab = None
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
+        datasets, reflectance = _reflectance_stage(datasets, options, say)
+        _check_size(datasets)
         merged, ranking = _merge_stage(datasets, options, say)
         cleaned, steps, analysed, binning, kk = _clean_stage(merged.spectrum, options, say)
+        mskk = _mskk_stage(analysed, kk, options, say)
         say("sum rules")
         rules = spectrum_sum_rules(analysed)
         if options.do_fit:
@@ -249,6 +294,8 @@ def analyse(
         slab=slab,
         warnings=msgs,
         seconds=time.perf_counter() - t0,
+        mskk=mskk,
+        reflectance=reflectance,
     )
     model = None
     if fitted is not None:
@@ -270,6 +317,8 @@ def run_job(
     batch item); ``inputs`` are paths or ``{"path", "axis", "quantity", "name",
     "convention"}`` dicts.
     """
+    from .api import one_blas_thread, read_any
+
     bar = _Progress(progress)
     bar("reading")
     with one_blas_thread():
@@ -311,10 +360,20 @@ def run(config, out_dir=None, *, progress: bool = False) -> JobResult:
     return run_job(inputs, out, opts, progress, f"kkcheck run {config}")
 
 
-def demo_inputs() -> list[str]:
-    """Paths of the bundled demo tables (package data in kkcheck/demo_data)."""
+#: Where ``kkcheck demo`` writes unless told otherwise (below the working directory).
+DEMO_OUT = "kkcheck-demo"
+
+
+def demo_inputs() -> list:
+    """The bundled demo tables (package data in kkcheck/demo_data): three n,k / eps tables and
+    an FTIR reflectance table (quantity R)."""
     root = Path(__file__).resolve().parent / "demo_data"
-    names = ("uvvis_ellipsometry.csv", "nir_ellipsometry.tsv", "handbook_ir.txt")
+    names = (
+        "uvvis_ellipsometry.csv",
+        "nir_ellipsometry.tsv",
+        "handbook_ir.txt",
+        "ftir_reflectance.csv",
+    )
     paths = [root / n for n in names]
     missing = [str(p) for p in paths if not p.exists()]
     if missing:
@@ -323,7 +382,8 @@ def demo_inputs() -> list[str]:
             "it from a checkout with python reference_data/make_demo.py)",
             path=missing[0],
         )
-    return [_short_path(p) for p in paths]
+    inputs: list = [_short_path(p) for p in paths[:3]]
+    return inputs + [{"path": _short_path(paths[3]), "quantity": "R"}]
 
 
 def _short_path(p: Path) -> str:
@@ -367,7 +427,3 @@ def demo(out_dir=None, *, progress: bool = False, refresh_committed: bool = Fals
         out = Path(out_dir) if out_dir is not None else Path(DEMO_OUT)
     opts = JobOptions(do_fit=True, html=True, title="ZX-7 film (invented demo data)")
     return run_job(demo_inputs(), out, opts, progress, "kkcheck demo")
-#: Where ``kkcheck demo`` writes unless told otherwise (below the working directory).
-DEMO_OUT = "kkcheck-demo"
-
-

@@ -13,6 +13,7 @@ if TYPE_CHECKING:  # annotations only: importing the stages here would slow star
     from .job import InputSpec, JobOptions
     from .kk.binning import BinRecord
     from .kk.consistency import KKTestResult
+    from .kk.mskk import MSKKView
     from .kk.sumrules import SumRuleResult
     from .merge import MergeResult, ReferenceTrial
     from .rational import FitResult
@@ -48,6 +49,10 @@ class JobResult:
     fit : FitResult or None
     slab : SlabComparison or None
         The last three are present when the fit was asked for.
+    mskk : MSKKView or None
+        The multiply subtractive KK view beside the basis-fit verdict (``options.mskk``).
+    reflectance : tuple
+        One phase-retrieval result per reflectance input (quantity ``"R"``).
     summary : dict
         The content of summary.json.
     model_json : dict or None
@@ -77,6 +82,8 @@ class JobResult:
     repair: RepairResult | None = None
     fit: FitResult | None = None
     slab: SlabComparison | None = None
+    mskk: MSKKView | None = None
+    reflectance: tuple = ()
     summary: dict = field(default_factory=dict, repr=False)
     model_json: dict | None = field(default=None, repr=False)
     warnings: tuple[str, ...] = ()

@@ -60,10 +60,18 @@ def test_demo_produces_every_artefact(tmp_path):
     assert step["source"] == "nir_ellipsometry"
     assert HC_EV_NM / step["energy_ev"] == pytest.approx(1600.0, abs=10.0)  # planted at 1.60 um
     assert step["relative"] == pytest.approx(-0.025, abs=0.006)  # eps1 x 1.025 below 0.775 eV
+    # the FTIR reflectance overlaps the short side of the step (kkcheck/demo_data, see
+    # reference_data/README.md), so the step is left as measured rather than shifting values
+    # another source checks, and the KK test reports it where it is
+    assert not step["applied"] and "overlap" in step["reason"]
     assert s["kk"]["verdict"] == "inconsistent"
-    # every region lies on the planted n bump centred at 480 nm (2.58 eV, width ~18 nm)
+    # every region lies on the planted n bump centred at 480 nm (2.58 eV, width ~18 nm) or on
+    # the unlevelled step's short side (0.56-0.775 eV)
     for r in s["kk"]["regions"]:
-        assert 2.3 < r["from_ev"] and r["to_ev"] < 2.9, r
+        on_bump = 2.3 < r["from_ev"] and r["to_ev"] < 2.9
+        on_step = 0.55 < r["from_ev"] and r["to_ev"] < 0.80
+        assert on_bump or on_step, r
+    assert any(2.3 < r["from_ev"] and r["to_ev"] < 2.9 for r in s["kk"]["regions"])
     m = json.loads((out / "model.json").read_text())
     assert m["passivity"]["certified"] and m["stable"]
     # the closed-form Lorentz phonon planted by reference_data/make_demo.py (0.9, 0.118 eV,
@@ -71,7 +79,7 @@ def test_demo_produces_every_artefact(tmp_path):
     ph = [t for t in m["terms"] if abs(t.get("w0_ev", 0) - 0.118) < 0.002]
     assert len(ph) == 1 and ph[0]["gamma_ev"] == pytest.approx(0.004, rel=0.05)
     changes = (out / "repair_changes.csv").read_text().splitlines()
-    assert changes[2].startswith("energy_ev,source,component,old,new,reason")
+    assert changes[2].startswith("energy_ev,source,row,component,old,new,stage,reason")
     assert any(",spike" in c for c in changes) and any(",fill" in c for c in changes)
     html = (out / "report.html").read_text()
     assert html.index("INCONSISTENT") < html.index("<table")

@@ -84,12 +84,16 @@ class ShapeCheck:
         worst = np.nanmax([self.mismatch_eps1, self.mismatch_eps2, 0.0])
         return bool(worst <= SHAPE_TOLERANCE)
 
-    def where(self) -> str:
-        """The disagreeing ranges in words, e.g. ``"eps2 at 0.64-1.2 eV"``."""
-        return ", ".join(
+    def where(self, most: int = 4) -> str:
+        """The disagreeing ranges in words, e.g. ``"eps2 at 0.64-1.2 eV"``; the ``most``
+        widest are named (summary.json's ``disagree_ev`` keeps them all)."""
+        widest = sorted(self.disagree_ev, key=lambda r: r[0] - r[1])[:most]
+        text = ", ".join(
             f"{c} at {a:.3g} eV" if f"{a:.3g}" == f"{b:.3g}" else f"{c} at {a:.3g}-{b:.3g} eV"
-            for a, b, c in self.disagree_ev
+            for a, b, c in sorted(widest)
         )
+        rest = len(self.disagree_ev) - len(widest)
+        return text + (f" and {rest} narrower range(s)" if rest > 0 else "")
 
 
 @dataclass(frozen=True)
