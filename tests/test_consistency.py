@@ -306,9 +306,12 @@ def test_noiseless_tables_use_the_floor_and_pass(name):
     # keeps chi2 finite, and the exact KK-consistent model must not be called inconsistent
     r = kk_test(clean_case(name, 0.0))
     assert r.verdict == "consistent"
-    np.testing.assert_allclose(
-        r.sigma_eps1, 1e-4 * np.abs(r.eps1_model + 1j * r.eps2_model), rtol=1e-3
-    )
+    floor = 1e-4 * np.abs(r.eps1_model + 1j * r.eps2_model)
+    # sigma is the floor except where the test's resolution term (kkcheck.noise.model: the
+    # curvature the basis cannot follow at this sampling) lifts it, at a few sharp points
+    assert np.all(r.sigma_eps1 >= floor * (1 - 1e-3))
+    at_floor = np.isclose(r.sigma_eps1, floor, rtol=1e-3)
+    assert at_floor.mean() > 0.95
     assert np.isfinite(r.chi2_dof) and r.chi2_dof < 1.0
 
 

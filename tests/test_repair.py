@@ -50,9 +50,11 @@ def test_spikes_replaced_within_noise_of_true_function(spiked):
     sp, idx, s1, s2 = spiked
     r = repair(sp, kk_test(sp))
     true = true_tl(sp.energy_ev[idx])
-    # the prediction from the other data must be within 3 sigma of the true closed form
-    assert np.all(np.abs(r.eps.real[idx] - true.real) < 3 * s1[idx])
-    assert np.all(np.abs(r.eps.imag[idx] - true.imag) < 3 * s2[idx])
+    # the prediction from the other data must be within 3.5 sigma of the true closed form
+    # (10 values checked at once: 3.5 sigma keeps the chance of a false alarm near 0.5 %;
+    # common practice, no source)
+    assert np.all(np.abs(r.eps.real[idx] - true.real) < 3.5 * s1[idx])
+    assert np.all(np.abs(r.eps.imag[idx] - true.imag) < 3.5 * s2[idx])
     assert np.all(r.flags[idx] & int(Flag.REPLACED))
     assert np.all(r.flags[idx] & int(Flag.SPIKE))  # input flags are carried over
     # every replaced value is recorded with its old (spiked) value
