@@ -134,7 +134,7 @@ def _read_text_as_file(data: bytes, shown: str, spec) -> Dataset:
                 quantity=spec.quantity,
                 name=spec.name or Path(shown.strip("<>")).stem,
                 convention=spec.convention,
-                columns=getattr(spec, "columns", None),
+                columns=spec.columns,
             )
         except InputError as exc:
             msg = exc.message.replace(str(path), shown)
@@ -223,7 +223,7 @@ def read_spec(spec, options=None):
         quantity=spec.quantity,
         name=spec.name,
         convention=spec.convention,
-        columns=getattr(spec, "columns", None),
+        columns=spec.columns,
     )
 
 

@@ -199,9 +199,7 @@ def _add_fit_options(p: argparse.ArgumentParser) -> None:
     g.add_argument(
         "--substrate-n", type=float, metavar="N", help="film on a thick substrate of index N"
     )
-    g.add_argument(
-        "--incoherent", action="store_true", help="the film is incoherent (no fringes)"
-    )
+    g.add_argument("--incoherent", action="store_true", help="the film is incoherent (no fringes)")
     g.add_argument(
         "--frequency-unit",
         choices=("eV", "rad/s"),

@@ -203,7 +203,6 @@ class JobOptions:
         return dataclasses.asdict(self)
 
 
-
 def _check_range_and_axis(range_ev, axis_out) -> None:
     from .units import AXIS_UNITS
 

@@ -53,18 +53,11 @@ __all__ = [
 
 
 def read_inputs(specs: Sequence[InputSpec], options: JobOptions | None = None) -> tuple:
-    """Read every input (first error stops, naming the file and line)."""
-    from .api import read_spec
+    """Read every input (first error stops, naming the file and line); see
+    :func:`kkcheck.api.read_any`, which this is with the specs already made."""
+    from .api import read_any
 
-    out = []
-    names: set[str] = set()
-    for s in specs:
-        ds = read_spec(s, options)
-        if ds.name in names:  # two files with one stem: keep both apart
-            ds = dataclasses.replace(ds, name=f"{ds.name}#{len(out) + 1}")
-        names.add(ds.name)
-        out.append(ds)
-    return tuple(out)
+    return read_any(list(specs), options)[1]
 
 
 # ----------------------------------------------------------------------------------- analysis
@@ -173,7 +166,7 @@ def _mskk_stage(analysed: Spectrum, kk, options: JobOptions, say):
 
 
 def _merge_stage(datasets, options: JobOptions, say):
-    from .merge import merge, rank_references, ranking_note
+    from .merge import cannot_tell, merge, rank_references, ranking_note
 
     say("merging sources")
     score = _kk_score(options) if len(datasets) > 1 else None
@@ -189,9 +182,8 @@ def _merge_stage(datasets, options: JobOptions, say):
     if options.rank_sources and len(datasets) > 1 and options.correct:
         say("ranking sources by KK consistency")
         ranking = rank_references(datasets, score, overlap=options.overlap)
-        note = ranking_note(ranking)
-        if note is not None and note.startswith("KK consistency cannot tell"):
-            warnings.warn(note, RuntimeWarning, stacklevel=2)
+        if cannot_tell(ranking):
+            warnings.warn(ranking_note(ranking), RuntimeWarning, stacklevel=2)
     return merged, ranking
 
 
@@ -345,9 +337,7 @@ def fit(
     inputs, out_dir=None, *, report: bool = False, progress: bool = False, **options
 ) -> JobResult:
     """Everything :func:`check` does, then repair, pole-pair fit and slab check."""
-    opts = job_options(
-        **{**options, "do_fit": True, "html": report or options.get("html", False)}
-    )
+    opts = job_options(**{**options, "do_fit": True, "html": report or options.get("html", False)})
     return run_job(inputs, out_dir, opts, progress, "kkcheck fit")
 
 

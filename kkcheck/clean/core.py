@@ -85,9 +85,7 @@ def _noise_notes(spectrum: Spectrum, noise: NoiseReport) -> list[str]:
     """One line per source: the median noise of each of its components."""
     notes = []
     for s, name, _idx in _source_points(spectrum):
-        levels = ", ".join(
-            f"{c} {noise.sigma(name, c):.3g}" for c in _component_names(spectrum, s)
-        )
+        levels = ", ".join(f"{c} {noise.sigma(name, c):.3g}" for c in _component_names(spectrum, s))
         notes.append(f"noise of {name}: {levels}")
     return notes
 
@@ -141,8 +139,7 @@ def clean(
     outliers = tuple(sorted(spikes + steps, key=lambda o: (o.energy_ev, o.kind, o.component)))
     plateaus = [o for o in steps if o.kind == "plateau"]
     notes = [
-        f"{len(spikes)} spike(s) and {len(steps) - len(plateaus)} step(s) flagged; "
-        "no point removed"
+        f"{len(spikes)} spike(s) and {len(steps) - len(plateaus)} step(s) flagged; no point removed"
     ]
     notes += [
         f"plateau in {o.component} of {o.source} over {o.energy_ev:.4g}-{o.end_energy_ev:.4g} eV "

@@ -39,7 +39,14 @@ References
 from .assembly import MergeResult, SourceReport, merge
 from .decision import MAX_CORRECTION, CorrectionDecision, ShapeCheck
 from .overlap import MIN_OVERLAP_POINTS, ScaleFit, estimate_scale_offset
-from .ranking import RankMode, ReferenceTrial, off_source, rank_references, ranking_note
+from .ranking import (
+    RankMode,
+    ReferenceTrial,
+    cannot_tell,
+    off_source,
+    rank_references,
+    ranking_note,
+)
 from .sampling import GAP_FACTOR, GAP_MIN_REL, find_gaps
 
 __all__ = [
@@ -56,6 +63,7 @@ __all__ = [
     "merge",
     "rank_references",
     "off_source",
+    "cannot_tell",
     "ranking_note",
     "MAX_CORRECTION",
     "CorrectionDecision",

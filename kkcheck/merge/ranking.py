@@ -27,7 +27,14 @@ from .overlap import (
     estimate_scale_offset,
 )
 
-__all__ = ["RankMode", "ReferenceTrial", "rank_references", "off_source", "ranking_note"]
+__all__ = [
+    "RankMode",
+    "ReferenceTrial",
+    "rank_references",
+    "off_source",
+    "cannot_tell",
+    "ranking_note",
+]
 
 #: Hypotheses of :func:`rank_references`: correct one suspect source at a time, or trust one
 #: source at a time and correct all others to it.
@@ -204,6 +211,21 @@ def off_source(trials: Sequence[ReferenceTrial], *, margin: float = 1.5) -> str 
     return None
 
 
+def cannot_tell(trials: Sequence[ReferenceTrial], *, margin: float = 1.5) -> bool:
+    """True when a correction helps but KK consistency cannot say which source is off.
+
+    That is: :func:`off_source` names none, the best suspect trial scores ``margin`` times
+    better than the uncorrected merge, and at least two suspect trials were scored.
+    """
+    if not trials or off_source(trials, margin=margin) is not None:
+        return False
+    sus = sorted((t for t in trials if t.hypothesis == "suspect"), key=lambda t: t.score)
+    base = [t for t in trials if t.hypothesis == "uncorrected"]
+    if len(sus) < 2 or not base or not np.isfinite(sus[0].score):
+        return False
+    return bool(base[0].score >= margin * sus[0].score)
+
+
 def ranking_note(trials: Sequence[ReferenceTrial], *, margin: float = 1.5) -> str | None:
     """One sentence on what the ranking can say when it names no source, else None.
 
@@ -230,7 +252,7 @@ def ranking_note(trials: Sequence[ReferenceTrial], *, margin: float = 1.5) -> st
         return None
     b = sus[0].score
     if base[0].score >= margin * b:
-        if len(sus) < 2:
+        if not cannot_tell(trials, margin=margin):
             return None
         return (
             "KK consistency cannot tell which source is off: correcting "

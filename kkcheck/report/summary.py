@@ -61,12 +61,10 @@ def build_summary(result) -> dict:
         "parameters": result.options.as_dict(),
         "warnings": list(result.warnings),
     }
-    mskk = getattr(result, "mskk", None)  # JobResult field once result.py declares it
-    if mskk is not None:
-        summary["mskk"] = mskk.to_dict()
-    reflectance = getattr(result, "reflectance", ())
-    if reflectance:
-        summary["reflectance"] = [r.to_dict() for r in reflectance]
+    if result.mskk is not None:
+        summary["mskk"] = result.mskk.to_dict()
+    if result.reflectance:
+        summary["reflectance"] = [r.to_dict() for r in result.reflectance]
     if result.repair is not None:
         from ..changes import change_record, record_counts
 

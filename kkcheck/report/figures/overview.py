@@ -10,8 +10,7 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
-import numpy as np
-
+from .axes import wants_log_values
 from .style import DATA_COLOUR, MODEL_COLOUR, REGION_COLOUR, STYLE, new_figure
 
 if TYPE_CHECKING:
@@ -20,14 +19,6 @@ if TYPE_CHECKING:
     from ...result import JobResult
 
 __all__ = ["overview_figure"]
-
-#: eps2 goes on a log axis when its positive values span more than this ratio.
-LOG_SPAN = 100.0
-
-
-def _eps2_wants_log(eps2: np.ndarray) -> bool:
-    pos = eps2[eps2 > 0]
-    return pos.size > 0.9 * eps2.size and pos.max() > LOG_SPAN * pos.min()
 
 
 def overview_figure(result: JobResult, ax=None) -> Figure:
@@ -69,7 +60,7 @@ def overview_figure(result: JobResult, ax=None) -> Figure:
                 if r.component == name:
                     a.axvspan(r.from_ev, r.to_ev, color=REGION_COLOUR, alpha=0.25, lw=0)
             a.set_ylabel(name)
-        if _eps2_wants_log(s.eps.imag):
+        if wants_log_values(s.eps.imag):
             axes[1].set_yscale("log")
             axes[1].set_ylabel("eps2 (log scale)")
         axes[1].set_xlabel("photon energy [eV]")
